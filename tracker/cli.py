@@ -1,0 +1,229 @@
+"""The ``roletrail`` command: a thin shell over :class:`tracker.api.Study`.
+
+Each command parses options, calls the API verb of the same name and prints.
+Errors a user can cause print one line and exit with status 2; the study is
+left unchanged (every write is one transaction).
+"""
+
+from __future__ import annotations
+
+import functools
+import os
+import sys
+
+import click
+import pandas as pd
+
+from tracker import __version__
+from tracker.errors import RoletrailError
+from tracker.output import FORMATS, render, write
+
+__all__ = ["main"]
+
+
+class _Group(click.Group):
+    """Turns user errors (and surprises) into one line on standard error."""
+
+    def invoke(self, ctx):
+        try:
+            return super().invoke(ctx)
+        except RoletrailError as exc:
+            _fail(str(exc), exc.exit_code)
+        except (click.exceptions.Exit, click.exceptions.Abort, click.ClickException, SystemExit):
+            raise
+        except KeyboardInterrupt:
+            _fail("interrupted; the study is unchanged", 130)
+        except Exception as exc:  # noqa: BLE001 - last line of defence for the user
+            if os.environ.get("ROLETRAIL_DEBUG"):
+                raise
+            message = _known_database_problem(exc)
+            if message:
+                _fail(message, 2)
+            _fail(
+                f"internal error ({type(exc).__name__}: {str(exc).splitlines()[0] if str(exc) else ''}); "
+                "the study is unchanged. Please report it; set ROLETRAIL_DEBUG=1 to see the details",
+                70,
+            )
+
+
+def _known_database_problem(exc: Exception) -> str | None:
+    from sqlalchemy.exc import OperationalError
+
+    if isinstance(exc, OperationalError):
+        text = str(exc.orig) if exc.orig is not None else str(exc)
+        if "locked" in text or "busy" in text:
+            return "the study is busy: another roletrail process is writing to it; wait for it to finish and try again"
+        if "disk" in text or "full" in text:
+            return f"the database could not be written ({text}); free some disk space and try again"
+        return f"the database could not be used ({text}); check --db and that the file is a roletrail study"
+    return None
+
+
+def _fail(message: str, code: int) -> None:
+    click.echo(f"roletrail: error: {message}", err=True)
+    sys.exit(code)
+
+
+def _study(ctx: click.Context, *, create: bool = False):
+    from tracker.api import Study
+
+    study = Study(ctx.obj["db"], create=create)
+    ctx.call_on_close(study.close)
+    return study
+
+
+def listing(func):
+    """The shared ``--format`` and ``-o`` options of every listing command."""
+
+    @click.option("--format", "fmt", type=click.Choice(FORMATS), default="table", show_default=True,
+                  help="table for reading; csv or json for other programs.")
+    @click.option("-o", "--output", type=click.Path(dir_okay=False, writable=True), default=None,
+                  help="Write to this file instead of standard output.")
+    @functools.wraps(func)
+    def wrapper(*args, **kwargs):
+        return func(*args, **kwargs)
+
+    return wrapper
+
+
+def _emit(frame: pd.DataFrame, fmt: str, output: str | None, title: str | None = None) -> None:
+    write(render(frame, fmt, title=title), output)
+    if output and output != "-":
+        click.echo(f"wrote {len(frame)} rows to {output}", err=True)
+
+
+def _progress_bar(label: str):
+    """A rich progress callback (bytes done, bytes total), silent when not on a terminal."""
+    from rich.progress import BarColumn, DownloadColumn, Progress, TimeRemainingColumn
+
+    progress = Progress(
+        "[progress.description]{task.description}", BarColumn(), DownloadColumn(), TimeRemainingColumn(),
+        transient=True, disable=not sys.stderr.isatty(),
+    )
+    task = progress.add_task(label, total=None)
+
+    def update(done: int, total: int) -> None:
+        progress.update(task, completed=done, total=total)
+
+    return progress, update
+
+
+@click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
+@click.option("--db", envvar="ROLETRAIL_DB", default=None, metavar="PATH|URL",
+              help="Study database: a SQLite file or any SQLAlchemy URL [env ROLETRAIL_DB; default roletrail.db].")
+@click.version_option(__version__, prog_name="roletrail")
+@click.pass_context
+def main(ctx: click.Context, db: str | None) -> None:
+    """Track how actors move between network positions over time."""
+    ctx.ensure_object(dict)
+    ctx.obj["db"] = db
+
+
+@main.command("import")
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.option("--source", required=True, help="Column of the actor the event comes from.")
+@click.option("--target", required=True, help="Column of the actor the event goes to.")
+@click.option("--date", "date_col", help="Column of event dates (ISO dates or bare years).")
+@click.option("--period", default="year", show_default=True, help="How to cut dates: year, quarter, month or Ny (N-year windows).")
+@click.option("--period-origin", default=0, type=int, help="First year of some N-year window (default: windows start at multiples of N).")
+@click.option("--period-column", help="Column holding the period label, instead of --date.")
+@click.option("--relation", "relation_col", help="Column holding the relation (kind of tie).")
+@click.option("--relation-name", help="One relation name for every row (default 'tie').")
+@click.option("--weight", help="Column of event weights (default: each event counts 1).")
+@click.option("--undirected", is_flag=True, help="The relation has no direction (A with B = B with A).")
+@click.option("--date-format", help="strftime format of the dates, e.g. %d/%m/%Y.")
+@click.option("--delimiter", help="CSV delimiter (detected when omitted); 'tab' for tabs.")
+@click.option("--replace", is_flag=True, help="Replace the earlier import of this content (or of this file name).")
+@click.pass_context
+def import_cmd(ctx, file, source, target, date_col, period, period_origin, period_column, relation_col,
+               relation_name, weight, undirected, date_format, delimiter, replace):
+    """Import dated dyadic events from a CSV or Parquet FILE."""
+    study = _study(ctx, create=True)
+    progress, update = _progress_bar(f"importing {os.path.basename(file)}")
+    with progress:
+        report = study.import_events(
+            file, source=source, target=target, date=date_col, period=period, period_origin=period_origin,
+            period_column=period_column, relation=relation_col, relation_name=relation_name, weight=weight,
+            undirected=undirected, date_format=date_format, delimiter=delimiter, replace=replace, progress=update,
+        )
+    replaced = f", replacing batch {', '.join(map(str, report['replaced']))}" if report["replaced"] else ""
+    click.echo(
+        f"imported {report['file']} as batch {report['batch']}{replaced}: {report['rows_loaded']} events "
+        f"of {report['rows_read']} rows, {report['self_ties_dropped']} self-ties dropped, "
+        f"{report['new_actors']} new actors, {report['periods']} periods updated"
+    )
+
+
+@main.command("import-actors")
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.option("--actor", default="actor", show_default=True, help="Column of actor labels.")
+@click.option("--first", help="Column of the first period (year or date) the actor is present.")
+@click.option("--last", help="Column of the last period the actor is present.")
+@click.option("--delimiter", help="CSV delimiter (detected when omitted).")
+@click.option("--replace", is_flag=True, help="Replace the earlier import of this roster.")
+@click.pass_context
+def import_actors_cmd(ctx, file, actor, first, last, delimiter, replace):
+    """Import a roster FILE: who exists when, with attributes (other columns)."""
+    study = _study(ctx, create=True)
+    report = study.import_actors(file, actor=actor, first=first, last=last, delimiter=delimiter, replace=replace)
+    click.echo(f"imported roster {report['file']} as batch {report['batch']}: {report['rows_loaded']} actors, {report['new_actors']} new")
+
+
+@main.command()
+@listing
+@click.pass_context
+def summary(ctx, fmt, output):
+    """One row per period and relation: actors, ties, density, reciprocity, isolates."""
+    from tracker.measures import SPARSE_DENSITY
+
+    frame = _study(ctx).summary()
+    _emit(frame, fmt, output, title="Periods and relations")
+    if fmt == "table" and output is None and len(frame) and frame["sparse"].any():
+        sparse = frame.loc[frame["sparse"], "period"].nunique()
+        click.echo(
+            f"note: {sparse} of {frame['period'].nunique()} periods have density below {SPARSE_DENSITY:g} in some relation; "
+            "the zero-block criterion (--criterion zero-block) suits such sparse data."
+        )
+
+
+@main.command()
+@listing
+@click.pass_context
+def actors(ctx, fmt, output):
+    """List actors with their roster range, attributes and other names."""
+    _emit(_study(ctx).actors(), fmt, output, title="Actors")
+
+
+@main.command()
+@listing
+@click.pass_context
+def batches(ctx, fmt, output):
+    """List imported files."""
+    _emit(_study(ctx).batches(), fmt, output, title="Imports")
+
+
+@main.command()
+@click.argument("other_name")
+@click.argument("actor")
+@click.pass_context
+def alias(ctx, other_name, actor):
+    """Record OTHER_NAME as another name of ACTOR (merging them if both have events)."""
+    result = _study(ctx).alias(other_name, actor)
+    if result["merged"]:
+        click.echo(f"merged {other_name!r} into {actor!r}: {result['events_moved']} events moved, ties rebuilt")
+    else:
+        click.echo(f"{other_name!r} now names {actor!r}")
+
+
+@main.command()
+@click.option("--period", required=True, help="New cut: year, quarter, month or Ny.")
+@click.option("--period-origin", default=0, type=int, help="First year of some N-year window.")
+@click.pass_context
+def recut(ctx, period, period_origin):
+    """Re-cut every dated event into new periods (no re-import needed)."""
+    result = _study(ctx).recut(period, origin=period_origin)
+    click.echo(f"re-cut {result['events']} events into {result['periods']} periods by {result['scheme']}")
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()

@@ -1,0 +1,128 @@
+"""SQLAlchemy 2 models of a study.
+
+The schema is created and changed only by the Alembic revisions in
+``migrations/versions``; these classes describe it for queries.  A test checks
+that the migrated schema and these models agree.
+
+Tables (see DEVELOPERS.md for the full description):
+
+``settings``          study-wide key/value settings (period scheme ...)
+``actors``            one row per actor; roster attributes and presence range
+``actor_aliases``     every spelling that maps to an actor (the label itself too)
+``relations``         relation name and whether it is directed
+``batches``           one row per imported file (hash, mapping, counts, time)
+``events``            raw dated events, kept so periods can be re-cut
+``periods``           period label, bounds and order
+``ties``              per period and relation: value and number of events
+``fits``...           blockmodel fits (added by revision 0002)
+"""
+
+from __future__ import annotations
+
+from datetime import datetime
+
+from sqlalchemy import (
+    Boolean,
+    DateTime,
+    Float,
+    ForeignKey,
+    Index,
+    Integer,
+    String,
+    Text,
+    UniqueConstraint,
+)
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
+
+
+class Base(DeclarativeBase):
+    pass
+
+
+class Setting(Base):
+    __tablename__ = "settings"
+
+    key: Mapped[str] = mapped_column(String(64), primary_key=True)
+    value: Mapped[str] = mapped_column(Text)
+
+
+class Actor(Base):
+    __tablename__ = "actors"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    label: Mapped[str] = mapped_column(Text, unique=True)
+    attributes: Mapped[str | None] = mapped_column(Text)  # JSON object from a roster
+    first_period: Mapped[str | None] = mapped_column(Text)  # roster: present from (inclusive)
+    last_period: Mapped[str | None] = mapped_column(Text)  # roster: present until (inclusive)
+    in_roster: Mapped[bool] = mapped_column(Boolean, default=False)
+
+
+class ActorAlias(Base):
+    __tablename__ = "actor_aliases"
+
+    alias: Mapped[str] = mapped_column(Text, primary_key=True)
+    actor_id: Mapped[int] = mapped_column(ForeignKey("actors.id", ondelete="CASCADE"), index=True)
+
+
+class RelationRow(Base):
+    __tablename__ = "relations"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    name: Mapped[str] = mapped_column(Text, unique=True)
+    directed: Mapped[bool] = mapped_column(Boolean)
+
+
+class Batch(Base):
+    __tablename__ = "batches"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    kind: Mapped[str] = mapped_column(String(16))  # "events" or "roster"
+    file_name: Mapped[str] = mapped_column(Text)
+    content_hash: Mapped[str] = mapped_column(String(64))
+    mapping: Mapped[str] = mapped_column(Text)  # JSON: the column mapping and options used
+    rows_read: Mapped[int] = mapped_column(Integer)
+    rows_loaded: Mapped[int] = mapped_column(Integer)
+    self_ties_dropped: Mapped[int] = mapped_column(Integer, default=0)
+    imported_at: Mapped[datetime] = mapped_column(DateTime)
+
+    __table_args__ = (UniqueConstraint("kind", "content_hash", name="uq_batches_kind_hash"),)
+
+
+class Period(Base):
+    __tablename__ = "periods"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    label: Mapped[str] = mapped_column(Text, unique=True)
+    sort_key: Mapped[int] = mapped_column(Integer)
+    start: Mapped[str | None] = mapped_column(String(10))  # ISO date, inclusive
+    end: Mapped[str | None] = mapped_column(String(10))  # ISO date, inclusive
+
+
+class Event(Base):
+    __tablename__ = "events"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    batch_id: Mapped[int] = mapped_column(ForeignKey("batches.id", ondelete="CASCADE"))
+    row: Mapped[int] = mapped_column(Integer)  # data row in the file (1 = first after header)
+    source_id: Mapped[int] = mapped_column(ForeignKey("actors.id"))
+    target_id: Mapped[int] = mapped_column(ForeignKey("actors.id"))
+    relation_id: Mapped[int] = mapped_column(ForeignKey("relations.id"))
+    occurred: Mapped[str | None] = mapped_column(String(10))  # ISO date; NULL when imported by period
+    period_id: Mapped[int] = mapped_column(ForeignKey("periods.id"))
+    weight: Mapped[float] = mapped_column(Float, default=1.0)
+
+    __table_args__ = (
+        Index("ix_events_batch", "batch_id"),
+        Index("ix_events_period", "period_id", "relation_id"),
+    )
+
+
+class Tie(Base):
+    __tablename__ = "ties"
+
+    period_id: Mapped[int] = mapped_column(ForeignKey("periods.id", ondelete="CASCADE"), primary_key=True)
+    relation_id: Mapped[int] = mapped_column(ForeignKey("relations.id"), primary_key=True)
+    source_id: Mapped[int] = mapped_column(ForeignKey("actors.id"), primary_key=True)
+    target_id: Mapped[int] = mapped_column(ForeignKey("actors.id"), primary_key=True)
+    value: Mapped[float] = mapped_column(Float)
+    n_events: Mapped[int] = mapped_column(Integer)
