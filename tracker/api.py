@@ -175,3 +175,128 @@ class Study:
     def batches(self) -> pd.DataFrame:
         """Imported files: batch id, kind, file, rows read and loaded, self-ties dropped, time, hash."""
         return self.store.batches()
+
+    # ------------------------------------------------------------------ fit
+    def fit(
+        self,
+        *,
+        method: str = "structural",
+        positions: int | str = 4,
+        criterion: str = "zero-block",
+        alpha: float | None = None,
+        cut: float | None = None,
+        seed: int = 0,
+        periods: Sequence[str] | None = None,
+        relations: Sequence[str] | None = None,
+        draws: int = 99,
+        k_min: int = 2,
+        k_max: int = 8,
+        options: dict | None = None,
+        smoothing: float = 0.0,
+        progress: Callable[[str], None] | None = None,
+    ) -> dict:
+        """Find positions in each period (all by default) and store the fit.
+
+        Returns ``{"fit": id, "periods": DataFrame}`` with one row per fitted
+        period (positions, inconsistencies, density correlation, p-value).
+        A fit with the same settings as an earlier one extends it (new
+        periods) or refreshes it; other settings make a new fit.  Either way
+        the fit becomes current.
+        """
+        from tracker import __version__
+        from tracker.blockmodel.fitting import FitSettings, fit_snapshot
+
+        settings = FitSettings(
+            method=method, positions=positions, criterion=criterion, alpha=alpha, cut=cut, seed=seed,
+            relations=tuple(relations) if relations else None, draws=draws, k_min=k_min, k_max=k_max,
+            options=dict(options or {}), smoothing=smoothing,
+        )
+        labels = self._period_selection(periods)
+        results = []
+        if settings.smoothing > 0:
+            from tracker.longitudinal.smoothing import smoothed_fits
+
+            results = smoothed_fits(self.store.snapshots(labels, settings.relations), settings, progress=progress)
+        else:
+            for snap in self.store.snapshots(labels, settings.relations):
+                results.append(fit_snapshot(snap, settings))
+                if progress is not None:
+                    progress(snap.period)
+        fit_id = self.store.save_fit(settings, results, __version__)
+        return {"fit": fit_id, "periods": self.store.fit_periods(fit_id).drop(columns=["diagnostics"])}
+
+    def _period_selection(self, periods: Sequence[str] | None) -> list[str]:
+        known = self.periods()
+        if not known:
+            raise UsageError("this study has no periods yet; import events first (roletrail import FILE ...)")
+        if not periods:
+            return known
+        wanted = [str(p) for p in periods]
+        missing = [p for p in wanted if p not in known]
+        if missing:
+            shown = ", ".join(known[:8]) + (" ..." if len(known) > 8 else "")
+            raise UsageError(f"no period {missing[0]!r} in this study; the periods are {shown}")
+        return [p for p in known if p in wanted]
+
+    def fits(self) -> pd.DataFrame:
+        """Every stored fit with its settings; ``current`` marks the one other verbs use."""
+        return self.store.fits()
+
+    def use_fit(self, fit_id: int) -> None:
+        """Make an earlier fit the current one."""
+        self.store.use_fit(int(fit_id))
+
+    def fit_info(self, fit: int | None = None) -> dict:
+        """Settings of the current (or a chosen) fit."""
+        return self.store.current_fit(fit)
+
+    def memberships(self, fit: int | None = None) -> pd.DataFrame:
+        """period, actor, position (1-based), isolate for the current (or a chosen) fit."""
+        return self.store.memberships(self.store.current_fit(fit)["id"])
+
+    def blocks(self, fit: int | None = None) -> pd.DataFrame:
+        """The block table: period, relation, from_position, to_position, ties, possible, density, ..., image."""
+        return self.store.blocks(self.store.current_fit(fit)["id"])
+
+    def fit_periods(self, fit: int | None = None) -> pd.DataFrame:
+        """Per-period fit results: positions, inconsistencies, density correlation, p-value, diagnostics."""
+        return self.store.fit_periods(self.store.current_fit(fit)["id"])
+
+    def show(self, period: str, *, fit: int | None = None, relation: str | None = None) -> dict:
+        """One period's density tables and images (per relation), positions labelled with their sizes.
+
+        Returns ``{"period", "fit", "criterion", "positions": DataFrame(position, size, isolates, label),
+        "relations": {name: {"density": DataFrame, "image": DataFrame}}, "fit_row": dict}``.
+        """
+        info = self.store.current_fit(fit)
+        period = str(period)
+        blocks = self.store.blocks(info["id"])
+        part = blocks[blocks["period"] == period]
+        if part.empty:
+            if period not in self.periods():
+                self._period_selection([period])
+            raise UsageError(f"fit {info['id']} has no result for period {period}; run roletrail fit --periods {period}")
+        members = self.store.memberships(info["id"])
+        members = members[members["period"] == period]
+        sizes = members.groupby("position").size()
+        iso = members.loc[members["isolate"], "position"].unique()
+        positions = pd.DataFrame({"position": sizes.index, "size": sizes.to_numpy()})
+        positions["isolates"] = positions["position"].isin(iso)
+        positions["label"] = [
+            f"P{p} (n={n}{', no ties' if i else ''})" for p, n, i in zip(positions["position"], positions["size"], positions["isolates"])
+        ]
+        names = dict(zip(positions["position"], positions["label"]))
+        out = {}
+        relations = sorted(part["relation"].unique()) if relation is None else [relation]
+        for rel in relations:
+            sub = part[part["relation"] == rel]
+            if sub.empty:
+                raise UsageError(f"no relation {rel!r} in this fit; it has {', '.join(sorted(part['relation'].unique()))}")
+            dens = sub.pivot(index="from_position", columns="to_position", values="density").rename(index=names, columns=names)
+            img = sub.pivot(index="from_position", columns="to_position", values="image").rename(index=names, columns=names)
+            out[rel] = {"density": dens, "image": img}
+        row = self.store.fit_periods(info["id"])
+        row = row[row["period"] == period].iloc[0].to_dict()
+        return {"period": period, "fit": info["id"], "criterion": info["criterion"], "positions": positions,
+                "relations": out, "fit_row": row}
+

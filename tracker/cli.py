@@ -225,5 +225,154 @@ def recut(ctx, period, period_origin):
     click.echo(f"re-cut {result['events']} events into {result['periods']} periods by {result['scheme']}")
 
 
+def _periods_option(func):
+    return click.option("--periods", "periods", multiple=True, metavar="PERIOD",
+                        help="Only these periods (repeat the option, or give a comma-separated list).")(func)
+
+
+def _split(values) -> list[str] | None:
+    out = [v.strip() for value in values or () for v in str(value).split(",") if v.strip()]
+    return out or None
+
+
+@main.command()
+@click.option("--method", default="structural", show_default=True,
+              help="structural, concor, regular, optimize or sbm.")
+@click.option("--positions", default="4", show_default=True, help="Positions of the tied actors per period, or 'auto'.")
+@click.option("--criterion", default="zero-block", show_default=True,
+              type=click.Choice(["zero-block", "one-block", "density", "max-value", "mean-value"]),
+              help="How blocks become image cells.")
+@click.option("--alpha", type=float, help="Density threshold of the density criterion (default: whole-network density).")
+@click.option("--cut", type=float, help="Value threshold of the max-value criterion (default: median tie value).")
+@click.option("--seed", default=0, show_default=True, type=int, help="Seed of every random step.")
+@_periods_option
+@click.option("--relation", "relations", multiple=True, help="Fit only these relations (jointly); default all.")
+@click.option("--draws", default=99, show_default=True, type=int, help="Permutation-test draws per period (0 = no test).")
+@click.option("--k-range", default="2-8", show_default=True, help="Range of positions tried by --positions auto.")
+@click.option("--linkage", help="structural/regular: hierarchical-clustering linkage (average, complete, ward, single).")
+@click.option("--measure", type=click.Choice(["euclidean", "correlation"]), help="structural: distance measure.")
+@click.option("--restarts", type=int, help="optimize/sbm: random starts.")
+@click.option("--exact", is_flag=True, help="regular: the exact maximal regular partition (binary data).")
+@click.option("--degree-corrected", is_flag=True, help="sbm: degree-corrected model.")
+@click.option("--smooth", "smoothing", default=0.0, show_default=True, type=float,
+              help="Penalty on changing position between consecutive periods (0 = each period alone).")
+@click.pass_context
+def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations, draws, k_range, linkage, measure,
+        restarts, exact, degree_corrected, smoothing):
+    """Find positions in every period (or --periods) and store the fit."""
+    from rich.progress import Progress
+
+    from tracker.errors import UsageError
+
+    try:
+        k_min, k_max = (int(x) for x in k_range.split("-"))
+    except ValueError:
+        raise UsageError(f"--k-range takes MIN-MAX such as 2-8, not {k_range!r}") from None
+    try:
+        positions = positions if positions == "auto" else int(positions)
+    except ValueError:
+        raise UsageError(f"--positions takes a whole number or 'auto', not {positions!r}") from None
+    options = {k: v for k, v in {"linkage": linkage, "measure": measure, "restarts": restarts}.items() if v is not None}
+    if exact:
+        options["exact"] = True
+    if degree_corrected:
+        options["degree_corrected"] = True
+    study = _study(ctx)
+    selected = _split(periods)
+    total = len(selected) if selected else len(study.periods())
+    with Progress(transient=True, disable=not sys.stderr.isatty()) as bar:
+        task = bar.add_task("fitting periods", total=total)
+        result = study.fit(
+            method=method, positions=positions, criterion=criterion, alpha=alpha, cut=cut, seed=seed,
+            periods=selected, relations=_split(relations), draws=draws, k_min=k_min, k_max=k_max,
+            options=options, smoothing=smoothing, progress=lambda _p: bar.advance(task),
+        )
+    click.echo(f"fit {result['fit']} ({method}, {criterion}, seed {seed}) is now current")
+    _emit(result["periods"], "table", None)
+
+
+@main.command()
+@listing
+@click.pass_context
+def fits(ctx, fmt, output):
+    """List stored fits; the current one is used by show, export, align ..."""
+    frame = _study(ctx).fits()
+    if fmt == "table":
+        frame = frame.drop(columns=["params"])
+    _emit(frame, fmt, output, title="Fits")
+
+
+@main.command("use-fit")
+@click.argument("fit_id", type=int)
+@click.pass_context
+def use_fit(ctx, fit_id):
+    """Make stored fit FIT_ID the current one."""
+    _study(ctx).use_fit(fit_id)
+    click.echo(f"fit {fit_id} is now current")
+
+
+@main.command()
+@click.argument("period")
+@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@click.option("--relation", help="Only this relation.")
+@click.pass_context
+def show(ctx, period, fit_id, relation):
+    """Show PERIOD's density table and image side by side."""
+    from rich.console import Console
+    from rich.table import Table
+    from rich.text import Text
+
+    view = _study(ctx).show(period, fit=fit_id, relation=relation)
+    row = view["fit_row"]
+    console = Console(highlight=False)
+    p = "-" if row["p_value"] is None or pd.isna(row["p_value"]) else f"{row['p_value']:.3f}"
+    corr = "-" if row["density_correlation"] is None or pd.isna(row["density_correlation"]) else f"{row['density_correlation']:.3f}"
+    console.print(Text(
+        f"Period {view['period']} - fit {view['fit']}, criterion {view['criterion']}: "
+        f"{row['positions']} positions, {row['inconsistencies']:g} inconsistencies, "
+        f"density correlation {corr}, permutation p {p}" + (" (perfect fit)" if row["perfect_fit"] else "")
+    ))
+    for rel, parts in view["relations"].items():
+        dens, img = parts["density"], parts["image"]
+        table = Table(title=Text(f"{rel}: density | image"), header_style="bold")
+        table.add_column("from \\ to")
+        for col in dens.columns:
+            table.add_column(Text(str(col).split(" ")[0]), justify="right")
+        table.add_column("|")
+        for col in img.columns:
+            table.add_column(Text(str(col).split(" ")[0]), justify="center")
+        for label in dens.index:
+            cells = [Text(f"{v:.2f}") for v in dens.loc[label]]
+            marks = [Text("1" if v else ".") for v in img.loc[label]]
+            table.add_row(Text(str(label)), *cells, Text("|"), *marks)
+        console.print(table)
+
+
+EXPORTS = ("memberships", "blocks", "fit-periods")
+
+
+@main.command()
+@click.argument("what", type=click.Choice(EXPORTS))
+@click.option("--format", "fmt", type=click.Choice(["csv", "json"]), default="csv", show_default=True)
+@click.option("-o", "--output", type=click.Path(dir_okay=False), default=None, help="File to write (default: standard output).")
+@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@click.pass_context
+def export(ctx, what, fmt, output, fit_id):
+    """Export results of the current fit: memberships, blocks, fit-periods ..."""
+    study = _study(ctx)
+    frame = _export_frame(study, what, fit_id)
+    _emit(frame, fmt, output)
+
+
+def _export_frame(study, what: str, fit_id):
+    if what == "memberships":
+        return study.memberships(fit_id)
+    if what == "blocks":
+        return study.blocks(fit_id)
+    frame = study.fit_periods(fit_id)
+    frame["diagnostics"] = [__import__("json").dumps(d) for d in frame["diagnostics"]]
+    return frame
+
+
 if __name__ == "__main__":  # pragma: no cover
     main()

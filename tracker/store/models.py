@@ -126,3 +126,67 @@ class Tie(Base):
     target_id: Mapped[int] = mapped_column(ForeignKey("actors.id"), primary_key=True)
     value: Mapped[float] = mapped_column(Float)
     n_events: Mapped[int] = mapped_column(Integer)
+
+
+class Fit(Base):
+    """One set of fitting settings; its per-period results live in the tables below."""
+
+    __tablename__ = "fits"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    settings_key: Mapped[str] = mapped_column(String(64), index=True)
+    method: Mapped[str] = mapped_column(String(32))
+    criterion: Mapped[str] = mapped_column(String(32))
+    seed: Mapped[int] = mapped_column(Integer)
+    params: Mapped[str] = mapped_column(Text)  # JSON of every setting
+    software_version: Mapped[str] = mapped_column(String(32))
+    created_at: Mapped[datetime] = mapped_column(DateTime)
+    updated_at: Mapped[datetime] = mapped_column(DateTime)
+    current: Mapped[bool] = mapped_column(Boolean, default=False, server_default="0")
+
+
+class FitPeriod(Base):
+    __tablename__ = "fit_periods"
+
+    fit_id: Mapped[int] = mapped_column(ForeignKey("fits.id", ondelete="CASCADE"), primary_key=True)
+    period_id: Mapped[int] = mapped_column(ForeignKey("periods.id", ondelete="CASCADE"), primary_key=True)
+    n_positions: Mapped[int] = mapped_column(Integer)
+    isolates_position: Mapped[int | None] = mapped_column(Integer)  # 1-based, None if no isolates
+    inconsistencies: Mapped[float] = mapped_column(Float)
+    density_correlation: Mapped[float | None] = mapped_column(Float)
+    perfect_fit: Mapped[bool] = mapped_column(Boolean)
+    p_value: Mapped[float | None] = mapped_column(Float)
+    draws: Mapped[int] = mapped_column(Integer)
+    diagnostics: Mapped[str | None] = mapped_column(Text)  # JSON (per-K table for --positions auto ...)
+    fitted_at: Mapped[datetime] = mapped_column(DateTime)
+
+
+class Membership(Base):
+    __tablename__ = "memberships"
+
+    fit_id: Mapped[int] = mapped_column(ForeignKey("fits.id", ondelete="CASCADE"), primary_key=True)
+    period_id: Mapped[int] = mapped_column(ForeignKey("periods.id", ondelete="CASCADE"), primary_key=True)
+    actor_id: Mapped[int] = mapped_column(ForeignKey("actors.id", ondelete="CASCADE"), primary_key=True)
+    position: Mapped[int] = mapped_column(Integer)  # 1-based
+    isolate: Mapped[bool] = mapped_column(Boolean)
+
+
+class Block(Base):
+    __tablename__ = "blocks"
+
+    fit_id: Mapped[int] = mapped_column(ForeignKey("fits.id", ondelete="CASCADE"), primary_key=True)
+    period_id: Mapped[int] = mapped_column(ForeignKey("periods.id", ondelete="CASCADE"), primary_key=True)
+    relation_id: Mapped[int] = mapped_column(ForeignKey("relations.id", ondelete="CASCADE"), primary_key=True)
+    from_position: Mapped[int] = mapped_column(Integer, primary_key=True)
+    to_position: Mapped[int] = mapped_column(Integer, primary_key=True)
+    ties: Mapped[int] = mapped_column(Integer)
+    possible: Mapped[int] = mapped_column(Integer)
+    density: Mapped[float] = mapped_column(Float)
+    mean_value: Mapped[float] = mapped_column(Float)
+    max_value: Mapped[float] = mapped_column(Float)
+    image: Mapped[int] = mapped_column(Integer)  # under the fit's criterion
+    image_zero_block: Mapped[int] = mapped_column(Integer)
+    image_one_block: Mapped[int] = mapped_column(Integer)
+    image_density: Mapped[int] = mapped_column(Integer)
+    image_max_value: Mapped[int] = mapped_column(Integer)
+    image_mean_value: Mapped[int] = mapped_column(Integer)
