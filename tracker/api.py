@@ -16,6 +16,7 @@ import os
 from pathlib import Path
 from typing import Callable, Sequence
 
+import numpy as np
 import pandas as pd
 
 from tracker.errors import UsageError
@@ -300,3 +301,80 @@ class Study:
         return {"period": period, "fit": info["id"], "criterion": info["criterion"], "positions": positions,
                 "relations": out, "fit_row": row}
 
+    # ------------------------------------------------------------------ structures
+    def structures(self, *, fit: int | None = None, draws: int = 199, seed: int | None = None,
+                   raw_check: bool = True) -> pd.DataFrame:
+        """The closest ideal image per period and relation, with its fit and significance.
+
+        For each period and relation of the fit, the image under the fit's
+        criterion (without the isolates' position, which is empty by
+        construction and would flatter every ideal with empty rows) is compared
+        with every ideal image over all orderings of its positions
+        (:func:`tracker.structures.ideal.classify_image`); the best one is kept
+        with ``mismatches``, ``fit`` = 1 - mismatches / B^2 and a p-value
+        against ``draws`` random images of the same density.  Beside it, the
+        discrete and continuous core-periphery correlations of Borgatti &
+        Everett (1999) on the raw ties (``cp_correlation``,
+        ``coreness_correlation``) check the image-level answer.  Positions are
+        named by their track when the fit is aligned (see :meth:`align`).
+
+        Returns columns ``period, relation, ideal, variant, mismatches, fit,
+        p_value, roles, changed, cp_correlation, coreness_correlation``.
+        """
+        from tracker.structures.change import structures_over_time
+        from tracker.structures.coreperiphery import continuous_coreness, discrete_core_periphery
+        from tracker.structures.ideal import classify_image
+
+        info = self.store.current_fit(fit)
+        seed = info["seed"] if seed is None else seed
+        blocks = self.store.blocks(info["id"])
+        fp = self.store.fit_periods(info["id"]).set_index("period")
+        names = self._position_names(info["id"])
+        rows, labels, extra = [], {}, {}
+        periods = [p for p in self.periods() if p in fp.index]
+        for period in periods:
+            iso = fp.loc[period, "isolates_position"]
+            part = blocks[blocks["period"] == period]
+            if iso is not None and not pd.isna(iso):
+                part = part[(part["from_position"] != iso) & (part["to_position"] != iso)]
+            kept = sorted(set(part["from_position"]))
+            labels[period] = {k: names.get(period, {}).get(pos, f"P{pos}") for k, pos in enumerate(kept)}
+            snap = self.snapshot(period) if raw_check else None
+            for rel, sub in part.groupby("relation", sort=True):
+                if len(kept) < 2:
+                    continue
+                img = sub.pivot(index="from_position", columns="to_position", values="image").loc[kept, kept].to_numpy()
+                best = classify_image(img, draws=draws, seed=seed)[0]
+                rows.append((period, rel, best))
+                if snap is not None:
+                    extra[(period, rel)] = _core_periphery_check(snap.matrix(rel), seed,
+                                                                  discrete_core_periphery, continuous_coreness)
+        table = structures_over_time(rows, labels=labels, periods=periods)
+        table["cp_correlation"] = [extra.get((p, r), (np.nan, np.nan))[0] for p, r in zip(table["period"], table["relation"])]
+        table["coreness_correlation"] = [extra.get((p, r), (np.nan, np.nan))[1] for p, r in zip(table["period"], table["relation"])]
+        return table
+
+    def structure_sentences(self, table: pd.DataFrame | None = None, **kwargs) -> list[str]:
+        """Plain sentences about the changes of structure over time."""
+        from tracker.structures.change import describe_changes
+
+        return describe_changes(self.structures(**kwargs) if table is None else table)
+
+    def _position_names(self, fit_id: int) -> dict:
+        """period -> {position (1-based): display name}; track names once the fit is aligned."""
+        return {}
+
+
+def _core_periphery_check(matrix, seed, discrete, continuous) -> tuple[float, float]:
+    """Borgatti-Everett discrete and continuous correlations, NaN where undefined (too few actors)."""
+    from tracker.errors import UsageError as _Usage
+
+    try:
+        _, r_discrete = discrete(matrix, seed=seed)
+    except _Usage:
+        r_discrete = float("nan")
+    try:
+        _, r_continuous = continuous(matrix)
+    except _Usage:
+        r_continuous = float("nan")
+    return float(r_discrete), float(r_continuous)

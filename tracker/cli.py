@@ -348,7 +348,27 @@ def show(ctx, period, fit_id, relation):
         console.print(table)
 
 
-EXPORTS = ("memberships", "blocks", "fit-periods")
+@main.command()
+@listing
+@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@click.option("--draws", default=199, show_default=True, type=int, help="Random images for the significance of each ideal.")
+@click.option("--sentences/--no-sentences", default=True, help="Also print plain sentences about the changes (table format).")
+@click.pass_context
+def structures(ctx, fmt, output, fit_id, draws, sentences):
+    """The closest ideal structure of each period's image, and when it changes."""
+    study = _study(ctx)
+    table = study.structures(fit=fit_id, draws=draws)
+    _emit(_structures_frame(table), fmt, output, title="Ideal structures")
+    if sentences and fmt == "table" and output is None:
+        for line in study.structure_sentences(table):
+            click.echo(line)
+
+
+def _structures_frame(table: pd.DataFrame) -> pd.DataFrame:
+    return table.drop(columns=["parts"], errors="ignore")
+
+
+EXPORTS = ("memberships", "blocks", "fit-periods", "structures")
 
 
 @main.command()
@@ -369,6 +389,8 @@ def _export_frame(study, what: str, fit_id):
         return study.memberships(fit_id)
     if what == "blocks":
         return study.blocks(fit_id)
+    if what == "structures":
+        return _structures_frame(study.structures(fit=fit_id))
     frame = study.fit_periods(fit_id)
     frame["diagnostics"] = [__import__("json").dumps(d) for d in frame["diagnostics"]]
     return frame
