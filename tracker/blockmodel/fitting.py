@@ -110,6 +110,7 @@ class PeriodFit:
     p_value: float | None
     draws: int
     diagnostics: dict
+    confidence: np.ndarray | None = None  # per actor: posterior probability of its position, when known
 
     @property
     def image(self) -> np.ndarray:

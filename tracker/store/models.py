@@ -169,6 +169,7 @@ class Membership(Base):
     actor_id: Mapped[int] = mapped_column(ForeignKey("actors.id", ondelete="CASCADE"), primary_key=True)
     position: Mapped[int] = mapped_column(Integer)  # 1-based
     isolate: Mapped[bool] = mapped_column(Boolean)
+    confidence: Mapped[float | None] = mapped_column(Float)  # posterior or bootstrap share, when known
 
 
 class Block(Base):
@@ -190,3 +191,75 @@ class Block(Base):
     image_density: Mapped[int] = mapped_column(Integer)
     image_max_value: Mapped[int] = mapped_column(Integer)
     image_mean_value: Mapped[int] = mapped_column(Integer)
+
+
+class AlignmentRow(Base):
+    """The settings of a fit's alignment (one per fit)."""
+
+    __tablename__ = "alignments"
+
+    fit_id: Mapped[int] = mapped_column(ForeignKey("fits.id", ondelete="CASCADE"), primary_key=True)
+    params: Mapped[str] = mapped_column(Text)
+    aligned_at: Mapped[datetime] = mapped_column(DateTime)
+
+
+class Track(Base):
+    """A persistent position across periods (track 0: actors without ties)."""
+
+    __tablename__ = "tracks"
+
+    fit_id: Mapped[int] = mapped_column(ForeignKey("fits.id", ondelete="CASCADE"), primary_key=True)
+    track: Mapped[int] = mapped_column(Integer, primary_key=True)
+    name: Mapped[str | None] = mapped_column(Text)
+    first_period: Mapped[str | None] = mapped_column(Text)
+    last_period: Mapped[str | None] = mapped_column(Text)
+    parent: Mapped[int | None] = mapped_column(Integer)
+    merged_into: Mapped[int | None] = mapped_column(Integer)
+    ended: Mapped[str | None] = mapped_column(Text)
+    isolates: Mapped[bool] = mapped_column(Boolean)
+
+
+class TrackPosition(Base):
+    """Which track each position of each period belongs to."""
+
+    __tablename__ = "track_positions"
+
+    fit_id: Mapped[int] = mapped_column(ForeignKey("fits.id", ondelete="CASCADE"), primary_key=True)
+    period_id: Mapped[int] = mapped_column(ForeignKey("periods.id", ondelete="CASCADE"), primary_key=True)
+    position: Mapped[int] = mapped_column(Integer, primary_key=True)  # 1-based
+    track: Mapped[int] = mapped_column(Integer)
+
+
+class TrackLink(Base):
+    """One alignment event: continue, birth, split, merge or end, with its similarity."""
+
+    __tablename__ = "track_links"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    fit_id: Mapped[int] = mapped_column(ForeignKey("fits.id", ondelete="CASCADE"))
+    from_period: Mapped[str | None] = mapped_column(Text)
+    to_period: Mapped[str | None] = mapped_column(Text)
+    from_track: Mapped[int | None] = mapped_column(Integer)
+    to_track: Mapped[int | None] = mapped_column(Integer)
+    from_position: Mapped[int | None] = mapped_column(Integer)
+    to_position: Mapped[int | None] = mapped_column(Integer)
+    similarity: Mapped[float | None] = mapped_column(Float)
+    overlap: Mapped[float | None] = mapped_column(Float)
+    role_similarity: Mapped[float | None] = mapped_column(Float)
+    kind: Mapped[str] = mapped_column(String(16))
+
+    __table_args__ = (Index("ix_track_links_fit", "fit_id"),)
+
+
+class Move(Base):
+    """An actor's change of track between two periods in which it is present."""
+
+    __tablename__ = "moves"
+
+    fit_id: Mapped[int] = mapped_column(ForeignKey("fits.id", ondelete="CASCADE"), primary_key=True)
+    actor_id: Mapped[int] = mapped_column(ForeignKey("actors.id", ondelete="CASCADE"), primary_key=True)
+    to_period_id: Mapped[int] = mapped_column(ForeignKey("periods.id", ondelete="CASCADE"), primary_key=True)
+    from_period_id: Mapped[int] = mapped_column(ForeignKey("periods.id", ondelete="CASCADE"))
+    from_track: Mapped[int] = mapped_column(Integer)
+    to_track: Mapped[int] = mapped_column(Integer)
+    confidence: Mapped[float | None] = mapped_column(Float)

@@ -21,7 +21,8 @@ from tracker.errors import StoreError, UsageError
 from tracker.ingest.periods import PeriodScheme, column_sort_keys, parse_scheme_name
 from tracker.snapshot import Relation, Snapshot, build_snapshot
 from tracker.store.models import (
-    Actor, ActorAlias, Batch, Block, Event, Fit, FitPeriod, Membership, Period, RelationRow, Setting, Tie,
+    Actor, ActorAlias, AlignmentRow, Batch, Block, Event, Fit, FitPeriod, Membership, Move, Period, RelationRow,
+    Setting, Tie, Track, TrackLink, TrackPosition,
 )
 
 __all__ = ["Store", "ImportReport"]
@@ -536,6 +537,7 @@ class Store:
             periods = dict(conn.execute(select(Period.label, Period.id)).all())
             relations = dict(conn.execute(select(RelationRow.name, RelationRow.id)).all())
             aliases = self._aliases(conn)
+            self._invalidate_alignment(conn, fit_id, [periods[pf.period] for pf in period_fits])
             for pf in period_fits:
                 pid = periods[pf.period]
                 for model in (Membership, Block, FitPeriod):
@@ -550,10 +552,12 @@ class Store:
                     diagnostics=json.dumps(pf.diagnostics, default=str), fitted_at=now,
                 ))
                 labels = part.labels
+                conf = pf.confidence if pf.confidence is not None else [None] * len(labels)
                 conn.execute(insert(Membership), [
                     {"fit_id": fit_id, "period_id": pid, "actor_id": aliases[a], "position": int(l) + 1,
-                     "isolate": iso is not None and int(l) + 1 == iso}
-                    for a, l in zip(pf.actors, labels)
+                     "isolate": iso is not None and int(l) + 1 == iso,
+                     "confidence": None if c is None or not np.isfinite(c) else float(c)}
+                    for a, l, c in zip(pf.actors, labels, conf)
                 ])
                 st = pf.stats
                 density, mean = st.density, st.mean_value
@@ -577,6 +581,148 @@ class Store:
             conn.execute(update(Fit).values(current=False))
             conn.execute(update(Fit).where(Fit.id == fit_id).values(current=True))
         return int(fit_id)
+
+    def _invalidate_alignment(self, conn, fit_id: int, period_ids: Sequence[int]) -> None:
+        """Refitting a period that was already aligned voids the alignment from that period on.
+
+        Earlier periods keep their tracks; the next ``align`` continues from them.
+        Appending a new, later period voids nothing.
+        """
+        refitted = set(conn.execute(
+            select(FitPeriod.period_id).where(FitPeriod.fit_id == fit_id, FitPeriod.period_id.in_(list(period_ids)))
+        ).scalars())
+        aligned = set(conn.execute(select(TrackPosition.period_id).where(TrackPosition.fit_id == fit_id)).scalars())
+        keys = dict(conn.execute(select(Period.id, Period.sort_key)).all())
+        new_ids = [p for p in period_ids if p not in refitted]
+        last_aligned = max((keys[p] for p in aligned), default=None)
+        # A new period earlier than the last aligned one also changes the story from there on.
+        starts = [keys[p] for p in refitted & aligned] + [keys[p] for p in new_ids if last_aligned is not None and keys[p] < last_aligned]
+        if not starts:
+            return
+        first = min(starts)
+        later = [p for p, k in keys.items() if k >= first]
+        labels = list(conn.execute(select(Period.label).where(Period.id.in_(later))).scalars())
+        conn.execute(delete(TrackPosition).where(TrackPosition.fit_id == fit_id, TrackPosition.period_id.in_(later)))
+        conn.execute(delete(Move).where(Move.fit_id == fit_id, Move.to_period_id.in_(later)))
+        conn.execute(delete(TrackLink).where(TrackLink.fit_id == fit_id, or_(TrackLink.to_period.in_(labels),
+                                                                             TrackLink.from_period.in_(labels))))
+
+    # ------------------------------------------------------------------ alignment
+    def save_alignment(self, fit_id: int, params: dict, alignment, moves: pd.DataFrame) -> None:
+        """Store a fit's alignment (tracks, assignments, links) and its moves, in one transaction.
+
+        Track names already given are kept (by track id).
+        """
+        now = _now()
+        with self.engine.begin() as conn:
+            names = dict(conn.execute(select(Track.track, Track.name).where(Track.fit_id == fit_id)).all())
+            for model in (Move, TrackLink, TrackPosition, Track, AlignmentRow):
+                conn.execute(delete(model).where(model.fit_id == fit_id))
+            conn.execute(insert(AlignmentRow).values(fit_id=fit_id, params=json.dumps(params, sort_keys=True), aligned_at=now))
+            periods = dict(conn.execute(select(Period.label, Period.id)).all())
+            if alignment.tracks:
+                conn.execute(insert(Track), [
+                    {"fit_id": fit_id, "track": t.id, "name": names.get(t.id), "first_period": t.first_period,
+                     "last_period": t.last_period, "parent": t.parent, "merged_into": t.merged_into,
+                     "ended": t.ended, "isolates": bool(t.isolates)}
+                    for t in alignment.tracks.values()
+                ])
+            rows = [
+                {"fit_id": fit_id, "period_id": periods[period], "position": k + 1, "track": int(track)}
+                for period, assignment in alignment.assignment.items()
+                for k, track in enumerate(assignment)
+            ]
+            if rows:
+                conn.execute(insert(TrackPosition), rows)
+            if alignment.links:
+                conn.execute(insert(TrackLink), [
+                    {"fit_id": fit_id, "from_period": l.from_period, "to_period": l.to_period,
+                     "from_track": l.from_track, "to_track": l.to_track,
+                     "from_position": None if l.from_position is None else l.from_position + 1,
+                     "to_position": None if l.to_position is None else l.to_position + 1,
+                     "similarity": _num(l.similarity), "overlap": _num(l.overlap),
+                     "role_similarity": _num(l.role_similarity), "kind": l.kind}
+                    for l in alignment.links
+                ])
+            self._write_moves(conn, fit_id, moves, periods)
+
+    def _write_moves(self, conn, fit_id: int, moves: pd.DataFrame, periods: dict | None = None) -> None:
+        periods = periods or dict(conn.execute(select(Period.label, Period.id)).all())
+        conn.execute(delete(Move).where(Move.fit_id == fit_id))
+        if moves.empty:
+            return
+        aliases = self._aliases(conn)
+        conn.execute(insert(Move), [
+            {"fit_id": fit_id, "actor_id": aliases[r.actor], "from_period_id": periods[r.from_period],
+             "to_period_id": periods[r.to_period], "from_track": int(r.from_track), "to_track": int(r.to_track),
+             "confidence": _num(getattr(r, "confidence", None))}
+            for r in moves.itertuples(index=False)
+        ])
+
+    def save_moves(self, fit_id: int, moves: pd.DataFrame) -> None:
+        """Replace a fit's moves (e.g. with bootstrap confidences added)."""
+        with self.engine.begin() as conn:
+            self._write_moves(conn, fit_id, moves)
+
+    def alignment_params(self, fit_id: int) -> dict | None:
+        with self.engine.connect() as conn:
+            row = conn.execute(select(AlignmentRow.params).where(AlignmentRow.fit_id == fit_id)).scalar_one_or_none()
+        return None if row is None else json.loads(row)
+
+    def tracks(self, fit_id: int) -> pd.DataFrame:
+        """track, name, first_period, last_period, parent, merged_into, ended, isolates."""
+        with self.engine.connect() as conn:
+            rows = conn.execute(
+                select(Track.track, Track.name, Track.first_period, Track.last_period, Track.parent,
+                       Track.merged_into, Track.ended, Track.isolates).where(Track.fit_id == fit_id).order_by(Track.track)
+            ).all()
+        return pd.DataFrame(rows, columns=["track", "name", "first_period", "last_period", "parent", "merged_into",
+                                           "ended", "isolates"])
+
+    def track_positions(self, fit_id: int) -> pd.DataFrame:
+        """period, position (1-based), track -- in time order."""
+        with self.engine.connect() as conn:
+            rows = conn.execute(
+                select(Period.label, TrackPosition.position, TrackPosition.track)
+                .join(Period, Period.id == TrackPosition.period_id).where(TrackPosition.fit_id == fit_id)
+                .order_by(Period.sort_key, TrackPosition.position)
+            ).all()
+        return pd.DataFrame(rows, columns=["period", "position", "track"])
+
+    def track_links(self, fit_id: int) -> pd.DataFrame:
+        with self.engine.connect() as conn:
+            rows = conn.execute(
+                select(TrackLink.from_period, TrackLink.to_period, TrackLink.from_track, TrackLink.to_track,
+                       TrackLink.from_position, TrackLink.to_position, TrackLink.similarity, TrackLink.overlap,
+                       TrackLink.role_similarity, TrackLink.kind).where(TrackLink.fit_id == fit_id).order_by(TrackLink.id)
+            ).all()
+        return pd.DataFrame(rows, columns=["from_period", "to_period", "from_track", "to_track", "from_position",
+                                           "to_position", "similarity", "overlap", "role_similarity", "kind"])
+
+    def moves(self, fit_id: int) -> pd.DataFrame:
+        """actor, from_period, to_period, from_track, to_track, confidence -- in time order."""
+        from sqlalchemy.orm import aliased
+
+        p_from, p_to = aliased(Period), aliased(Period)
+        with self.engine.connect() as conn:
+            rows = conn.execute(
+                select(Actor.label, p_from.label, p_to.label, Move.from_track, Move.to_track, Move.confidence)
+                .join(Actor, Actor.id == Move.actor_id).join(p_from, p_from.id == Move.from_period_id)
+                .join(p_to, p_to.id == Move.to_period_id).where(Move.fit_id == fit_id)
+                .order_by(p_to.sort_key, Actor.label)
+            ).all()
+        return pd.DataFrame(rows, columns=["actor", "from_period", "to_period", "from_track", "to_track", "confidence"])
+
+    def name_track(self, fit_id: int, track: int, name: str) -> None:
+        """Give a track a name (kept through re-alignment and updates)."""
+        with self.engine.begin() as conn:
+            found = conn.execute(select(Track.track).where(Track.fit_id == fit_id, Track.track == track)).first()
+            if found is None:
+                known = list(conn.execute(select(Track.track).where(Track.fit_id == fit_id).order_by(Track.track)).scalars())
+                if not known:
+                    raise UsageError("this fit has no tracks yet; run roletrail align first")
+                raise UsageError(f"no track {track} in fit {fit_id}; the tracks are {', '.join(map(str, known))}")
+            conn.execute(update(Track).where(Track.fit_id == fit_id, Track.track == track).values(name=name))
 
     def fits(self) -> pd.DataFrame:
         """Every fit: id, method, criterion, seed, periods fitted, current, times, version, params."""
@@ -628,15 +774,16 @@ class Store:
         return frame
 
     def memberships(self, fit_id: int) -> pd.DataFrame:
-        """period, actor, position (1-based), isolate; periods in time order, actors by label."""
+        """period, actor, position (1-based), isolate, confidence; periods in time order, actors by label."""
         with self.engine.connect() as conn:
             rows = conn.execute(
-                select(Period.label, Actor.label, Membership.position, Membership.isolate)
+                select(Period.label, Actor.label, Membership.position, Membership.isolate, Membership.confidence)
                 .join(Period, Period.id == Membership.period_id).join(Actor, Actor.id == Membership.actor_id)
                 .where(Membership.fit_id == fit_id).order_by(Period.sort_key, Actor.label)
             ).all()
-        frame = pd.DataFrame(rows, columns=["period", "actor", "position", "isolate"])
+        frame = pd.DataFrame(rows, columns=["period", "actor", "position", "isolate", "confidence"])
         frame["isolate"] = frame["isolate"].astype(bool)
+        frame["confidence"] = frame["confidence"].astype(float)
         return frame
 
     def blocks(self, fit_id: int) -> pd.DataFrame:
@@ -654,6 +801,17 @@ class Store:
         return pd.DataFrame(rows, columns=["period", "relation", "from_position", "to_position", "ties", "possible",
                                            "density", "mean_value", "max_value", "image", "image_zero_block",
                                            "image_one_block", "image_density", "image_max_value", "image_mean_value"])
+
+
+def _num(value):
+    """A float for the database: None for missing or non-finite values."""
+    if value is None:
+        return None
+    try:
+        value = float(value)
+    except (TypeError, ValueError):
+        return None
+    return value if np.isfinite(value) else None
 
 
 def _bind(name: str):
