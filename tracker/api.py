@@ -252,8 +252,15 @@ class Study:
         return self.store.current_fit(fit)
 
     def memberships(self, fit: int | None = None) -> pd.DataFrame:
-        """period, actor, position (1-based), isolate for the current (or a chosen) fit."""
-        return self.store.memberships(self.store.current_fit(fit)["id"])
+        """period, actor, position (1-based), isolate, track (once aligned), confidence."""
+        fit_id = self.store.current_fit(fit)["id"]
+        members = self.store.memberships(fit_id)
+        positions = self.store.track_positions(fit_id)
+        if not positions.empty:
+            members = members.merge(positions, on=["period", "position"], how="left")
+            members["track"] = members["track"].astype("Int64")
+            members = members[["period", "actor", "position", "track", "isolate", "confidence"]]
+        return members
 
     def blocks(self, fit: int | None = None) -> pd.DataFrame:
         """The block table: period, relation, from_position, to_position, ties, possible, density, ..., image."""
@@ -362,7 +369,246 @@ class Study:
 
     def _position_names(self, fit_id: int) -> dict:
         """period -> {position (1-based): display name}; track names once the fit is aligned."""
-        return {}
+        positions = self.store.track_positions(fit_id)
+        if positions.empty:
+            return {}
+        names = _track_names(self.store.tracks(fit_id))
+        out: dict = {}
+        for period, position, track in positions.itertuples(index=False):
+            out.setdefault(period, {})[int(position)] = names.get(int(track), f"T{track}")
+        return out
+
+    # ------------------------------------------------------------------ tracks and moves
+    def align(
+        self,
+        *,
+        fit: int | None = None,
+        weight_overlap: float = 0.5,
+        link_threshold: float = 0.2,
+        split_threshold: float = 0.3,
+        max_gap: int = 0,
+        draws: int = 20,
+        seed: int | None = None,
+        rebuild: bool = False,
+        include_isolates: bool = False,
+    ) -> dict:
+        """Link every period's positions to persistent tracks, find moves and their confidence.
+
+        Periods aligned before keep their tracks exactly (new periods are
+        aligned after them) unless ``rebuild``; track names are kept by track
+        id.  Each move's ``confidence`` is the share of ``draws`` bootstrap
+        replicates (each period's events resampled with replacement and both
+        periods refitted with the fit's own settings) in which the move is
+        reproduced (:func:`tracker.longitudinal.confidence.move_confidence`);
+        ``draws=0`` skips it.  Moves into or out of the no-tie track (0) are
+        left out unless ``include_isolates``: in sparse data an actor with no
+        event in one year has not changed role.
+
+        Returns ``{"fit", "tracks", "moves", "periods", "new_periods"}``.
+        """
+        from tracker.longitudinal.align import align as align_positions
+        from tracker.longitudinal.movement import moves as find_moves
+
+        info = self.store.current_fit(fit)
+        fit_id = info["id"]
+        seed = info["seed"] if seed is None else seed
+        params = {"weight_overlap": weight_overlap, "link_threshold": link_threshold,
+                  "split_threshold": split_threshold, "max_gap": max_gap, "draws": draws, "seed": seed,
+                  "include_isolates": include_isolates}
+        periods = self._aligned_inputs(fit_id)
+        if not periods:
+            raise UsageError(f"fit {fit_id} has no fitted periods; run roletrail fit first")
+        previous = None if rebuild else self._stored_alignment(fit_id, [p.period for p in periods])
+        done = 0 if previous is None else len(previous.periods)
+        alignment = align_positions(periods, previous=previous, weight_overlap=weight_overlap,
+                                    link_threshold=link_threshold, split_threshold=split_threshold, max_gap=max_gap)
+        if rebuild:
+            alignment = _carry_track_ids(alignment, periods, self.store.track_positions(fit_id), self.store.memberships(fit_id))
+        members = _memberships_with_tracks(periods, alignment)
+        order = [p.period for p in periods]
+        moves = find_moves(members, order, ignore_tracks=() if include_isolates else (0,))
+        moves = moves[["actor", "from_period", "to_period", "from_track", "to_track"]].copy()
+        moves["confidence"] = np.nan
+        if draws and len(moves):
+            moves["confidence"] = self._move_confidence(info, periods, alignment, moves, draws, seed)
+        self.store.save_alignment(fit_id, params, alignment, moves)
+        return {"fit": fit_id, "tracks": self.tracks(fit_id), "moves": self.store.moves(fit_id),
+                "periods": len(order), "new_periods": len(order) - done}
+
+    def _aligned_inputs(self, fit_id: int) -> list:
+        from tracker.longitudinal.align import PeriodPositions
+
+        members = self.store.memberships(fit_id)
+        blocks = self.store.blocks(fit_id)
+        fp = self.store.fit_periods(fit_id).set_index("period")
+        out = []
+        for period in [p for p in self.periods() if p in fp.index]:
+            part = members[members["period"] == period]
+            n_pos = int(fp.loc[period, "positions"])
+            iso = fp.loc[period, "isolates_position"]
+            iso = None if iso is None or pd.isna(iso) else int(iso) - 1
+            b = blocks[blocks["period"] == period]
+            rels = sorted(b["relation"].unique())
+            density = np.zeros((len(rels), n_pos, n_pos))
+            for r, rel in enumerate(rels):
+                sub = b[b["relation"] == rel]
+                density[r, sub["from_position"].to_numpy() - 1, sub["to_position"].to_numpy() - 1] = sub["density"].to_numpy()
+            out.append(PeriodPositions(period, tuple(part["actor"]), part["position"].to_numpy() - 1, n_pos, iso, density))
+        return out
+
+    def _stored_alignment(self, fit_id: int, periods: list[str]):
+        """The stored alignment of the longest prefix of ``periods`` that is still aligned, or None."""
+        from tracker.longitudinal.align import Alignment, Link, TrackInfo
+
+        positions = self.store.track_positions(fit_id)
+        if positions.empty:
+            return None
+        aligned = set(positions["period"])
+        prefix = []
+        for p in periods:
+            if p not in aligned:
+                break
+            prefix.append(p)
+        if not prefix:
+            return None
+        inside = set(prefix)
+        positions = positions[positions["period"].isin(inside)]
+        assignment = {p: positions.loc[positions["period"] == p].sort_values("position")["track"].to_numpy(dtype=np.int64)
+                      for p in prefix}
+        rank = {p: i for i, p in enumerate(prefix)}
+        tracks = {}
+        for row in self.store.tracks(fit_id).itertuples(index=False):
+            seen = [p for p in prefix if row.track in assignment[p]]
+            if not seen:
+                continue
+            ended = row.ended if row.ended in inside else None
+            tracks[int(row.track)] = TrackInfo(
+                int(row.track), seen[0], seen[-1], None if pd.isna(row.parent) else int(row.parent),
+                None if ended is None or pd.isna(row.merged_into) else int(row.merged_into), ended, bool(row.isolates),
+            )
+        links = []
+        for l in self.store.track_links(fit_id).itertuples(index=False):
+            if (l.to_period is not None and l.to_period not in inside) or (l.from_period is not None and l.from_period not in inside):
+                continue
+            links.append(Link(l.from_period, l.to_period, _int(l.from_track), _int(l.to_track),
+                              None if _int(l.from_position) is None else _int(l.from_position) - 1,
+                              None if _int(l.to_position) is None else _int(l.to_position) - 1,
+                              _float(l.similarity), _float(l.overlap), _float(l.role_similarity), l.kind))
+        links.sort(key=lambda l: rank.get(l.to_period or l.from_period, 0))
+        return Alignment(tuple(prefix), dict(sorted(tracks.items())), assignment, links)
+
+    def _move_confidence(self, info: dict, periods: list, alignment, moves: pd.DataFrame, draws: int, seed: int):
+        from tracker.blockmodel.positions import find_positions
+        from tracker.longitudinal.confidence import move_confidence
+
+        params = info["params"]
+        needed = sorted(set(moves["from_period"]) | set(moves["to_period"]))
+        snaps = {s.period: s for s in self.store.snapshots(needed, params.get("relations"))}
+        by_period = {p.period: p for p in periods}
+        directed = next(iter(snaps.values())).directed
+
+        def refit(period, matrices):
+            # The fit's own settings; tied-actor count K as fitted (not re-chosen by "auto").
+            pp = by_period[period]
+            k = pp.n_positions - (1 if pp.isolates is not None else 0)
+            return find_positions(matrices, directed, max(k, 1), method=params["method"], seed=params["seed"],
+                                  criterion=params["criterion"], alpha=params.get("alpha"), cut=params.get("cut"),
+                                  **params.get("options", {})).labels
+
+        return move_confidence(
+            moves, refit,
+            matrices={p: snaps[p].matrices for p in needed}, directed=directed,
+            actors={p: snaps[p].actors for p in needed}, labels={p: by_period[p].labels for p in needed},
+            assignment={p: alignment.assignment[p] for p in needed}, draws=draws, seed=seed,
+        )
+
+    def tracks(self, fit: int | None = None) -> pd.DataFrame:
+        """Tracks of the current (or a chosen) fit: id, name, first and last period, parent, merges, size."""
+        fit_id = self.store.current_fit(fit)["id"]
+        tracks = self.store.tracks(fit_id)
+        if tracks.empty:
+            return tracks.assign(periods=[], mean_size=[])
+        members = self.memberships(fit_id)
+        sizes = members.groupby(["track", "period"]).size().groupby("track").agg(["count", "mean"])
+        tracks["periods"] = tracks["track"].map(sizes["count"]).fillna(0).astype(int)
+        tracks["mean_size"] = tracks["track"].map(sizes["mean"]).round(1)
+        tracks["name"] = [n if isinstance(n, str) else ("no ties" if iso else f"T{t}")
+                          for t, n, iso in zip(tracks["track"], tracks["name"], tracks["isolates"])]
+        return tracks
+
+    def name_track(self, track: int, name: str, *, fit: int | None = None) -> None:
+        """Name a track ("coordinating core"); the name is kept through re-alignment and updates."""
+        name = str(name).strip()
+        if not name:
+            raise UsageError("give a non-empty name")
+        self.store.name_track(self.store.current_fit(fit)["id"], int(track), name)
+
+    def moves(self, fit: int | None = None) -> pd.DataFrame:
+        """actor, from_period, to_period, from_track, to_track, confidence (current or chosen fit)."""
+        fit_id = self.store.current_fit(fit)["id"]
+        self._require_alignment(fit_id)
+        moves = self.store.moves(fit_id)
+        names = _track_names(self.store.tracks(fit_id))
+        moves["from_name"] = moves["from_track"].map(names)
+        moves["to_name"] = moves["to_track"].map(names)
+        return moves
+
+    def transitions(self, fit: int | None = None, *, include_isolates: bool = True) -> pd.DataFrame:
+        """Transition counts and row shares between tracks, per step and pooled ("all")."""
+        from tracker.longitudinal.movement import transitions
+
+        fit_id = self.store.current_fit(fit)["id"]
+        self._require_alignment(fit_id)
+        members = self.memberships(fit_id)
+        return transitions(members, self._fitted_periods(fit_id), ignore_tracks=() if include_isolates else (0,))
+
+    def mobility(self, fit: int | None = None) -> pd.DataFrame:
+        """Per step: actors present in both periods, movers, mobility rate, entries, exits."""
+        from tracker.longitudinal.movement import mobility
+
+        fit_id = self.store.current_fit(fit)["id"]
+        self._require_alignment(fit_id)
+        return mobility(self.memberships(fit_id), self._fitted_periods(fit_id), ignore_tracks=(0,))
+
+    def export_graphml(self, folder: str | os.PathLike, *, fit: int | None = None) -> list[Path]:
+        """Write each period's snapshot as GraphML (an open standard) with position and track as node attributes.
+
+        One file per period, ``<folder>/<period>.graphml``; one graph per file
+        holds every relation as edges with a ``relation`` attribute.
+        """
+        import networkx as nx
+
+        fit_id = self.store.current_fit(fit)["id"]
+        members = self.memberships(fit_id)
+        folder = Path(folder)
+        folder.mkdir(parents=True, exist_ok=True)
+        written = []
+        for snap in self.store.snapshots(self._fitted_periods(fit_id)):
+            graph = nx.MultiDiGraph(period=snap.period)
+            part = members[members["period"] == snap.period].set_index("actor")
+            for actor in snap.actors:
+                attrs = {"position": int(part.loc[actor, "position"]), "isolate": bool(part.loc[actor, "isolate"])}
+                if "track" in part and not pd.isna(part.loc[actor, "track"]):
+                    attrs["track"] = int(part.loc[actor, "track"])
+                graph.add_node(actor, **attrs)
+            for rel, mat in zip(snap.relations, snap.matrices):
+                coo = mat.tocoo()
+                keep = np.ones(coo.nnz, bool) if rel.directed else coo.row < coo.col
+                for i, j, v in zip(coo.row[keep], coo.col[keep], coo.data[keep]):
+                    graph.add_edge(snap.actors[i], snap.actors[j], relation=rel.name, weight=float(v),
+                                   directed=rel.directed)
+            safe = "".join(c if c.isalnum() or c in "-_." else "_" for c in snap.period)
+            path = folder / f"{safe}.graphml"
+            nx.write_graphml(graph, path)
+            written.append(path)
+        return written
+
+    def _fitted_periods(self, fit_id: int) -> list[str]:
+        return self.store.fit_periods(fit_id)["period"].tolist()
+
+    def _require_alignment(self, fit_id: int) -> None:
+        if self.store.track_positions(fit_id).empty:
+            raise UsageError(f"fit {fit_id} is not aligned yet; run roletrail align first")
 
 
 def _core_periphery_check(matrix, seed, discrete, continuous) -> tuple[float, float]:
@@ -378,3 +624,63 @@ def _core_periphery_check(matrix, seed, discrete, continuous) -> tuple[float, fl
     except _Usage:
         r_continuous = float("nan")
     return float(r_discrete), float(r_continuous)
+
+
+def _int(value):
+    return None if value is None or pd.isna(value) else int(value)
+
+
+def _float(value):
+    return float("nan") if value is None or pd.isna(value) else float(value)
+
+
+def _track_names(tracks: pd.DataFrame) -> dict[int, str]:
+    """track id -> display name (the user's name, "no ties" for track 0, else T<id>)."""
+    return {
+        int(t): (n if isinstance(n, str) and n else ("no ties" if iso else f"T{t}"))
+        for t, n, iso in zip(tracks["track"], tracks["name"], tracks["isolates"])
+    }
+
+
+def _memberships_with_tracks(periods, alignment) -> pd.DataFrame:
+    from tracker.longitudinal.align import memberships
+
+    return memberships(periods, alignment)
+
+
+def _carry_track_ids(alignment, periods, old_positions: pd.DataFrame, old_members: pd.DataFrame):
+    """After a rebuild, give new tracks the ids (and so the names) of the old tracks they match best.
+
+    Matching: maximum-weight one-to-one matching (Hungarian method) on the
+    number of (period, actor) memberships two tracks share.
+    """
+    import dataclasses
+
+    from tracker.longitudinal.align import Alignment, max_weight_matching
+
+    if old_positions.empty:
+        return alignment
+    old = old_members.merge(old_positions, on=["period", "position"])
+    new = _memberships_with_tracks(periods, alignment)
+    both = old.merge(new, on=["period", "actor"], suffixes=("_old", "_new"))
+    both = both[(both["track_old"] > 0) & (both["track_new"] > 0)]
+    if both.empty:
+        return alignment
+    table = both.groupby(["track_new", "track_old"]).size().unstack(fill_value=0)
+    rows, cols = max_weight_matching(table.to_numpy())
+    mapping = {int(table.index[r]): int(table.columns[c]) for r, c in zip(rows, cols) if table.to_numpy()[r, c] > 0}
+    used = set(mapping.values())
+    spare = (i for i in range(1, 10**9) if i not in used)
+    for t in sorted(alignment.tracks):
+        if t > 0 and t not in mapping:
+            mapping[t] = next(spare)
+    mapping[0] = 0
+    remap = np.vectorize(lambda t: mapping.get(int(t), int(t)) if t >= 0 else int(t))
+    tracks = {mapping[k]: dataclasses.replace(v, id=mapping[k],
+                                              parent=None if v.parent is None else mapping[v.parent],
+                                              merged_into=None if v.merged_into is None else mapping[v.merged_into])
+              for k, v in alignment.tracks.items()}
+    links = [dataclasses.replace(l, from_track=None if l.from_track is None else mapping[l.from_track],
+                                 to_track=None if l.to_track is None else mapping[l.to_track]) for l in alignment.links]
+    assignment = {p: remap(a).astype(np.int64) if a.size else a for p, a in alignment.assignment.items()}
+    return Alignment(alignment.periods, dict(sorted(tracks.items())), assignment, links)

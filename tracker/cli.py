@@ -368,7 +368,81 @@ def _structures_frame(table: pd.DataFrame) -> pd.DataFrame:
     return table.drop(columns=["parts"], errors="ignore")
 
 
-EXPORTS = ("memberships", "blocks", "fit-periods", "structures")
+@main.command()
+@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@click.option("--overlap-weight", default=0.5, show_default=True, type=float,
+              help="Weight of membership overlap against role similarity when linking positions.")
+@click.option("--link-threshold", default=0.2, show_default=True, type=float, help="Least similarity to continue a track.")
+@click.option("--split-threshold", default=0.3, show_default=True, type=float, help="Least overlap for a split or merge.")
+@click.option("--max-gap", default=0, show_default=True, type=int, help="Periods a track may be missing and still continue.")
+@click.option("--draws", default=20, show_default=True, type=int, help="Bootstrap draws for move confidence (0 = none).")
+@click.option("--seed", type=int, help="Seed of the bootstrap (default: the fit's seed).")
+@click.option("--rebuild", is_flag=True, help="Align every period again (track ids and names carried over by best match).")
+@click.option("--include-isolates", is_flag=True, help="Count moves into and out of the no-tie track as moves.")
+@click.pass_context
+def align(ctx, fit_id, overlap_weight, link_threshold, split_threshold, max_gap, draws, seed, rebuild, include_isolates):
+    """Link positions across periods into tracks; find moves and their confidence."""
+    result = _study(ctx).align(
+        fit=fit_id, weight_overlap=overlap_weight, link_threshold=link_threshold, split_threshold=split_threshold,
+        max_gap=max_gap, draws=draws, seed=seed, rebuild=rebuild, include_isolates=include_isolates,
+    )
+    moves = result["moves"]
+    low = int((moves["confidence"] < 0.5).sum()) if len(moves) else 0
+    click.echo(
+        f"fit {result['fit']}: {result['periods']} periods aligned ({result['new_periods']} new), "
+        f"{int((result['tracks']['track'] > 0).sum())} tracks, {len(moves)} moves"
+        + (f" ({low} with confidence below 0.5)" if draws and len(moves) else "")
+    )
+    _emit(result["tracks"], "table", None, title="Tracks")
+
+
+@main.command()
+@listing
+@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@click.pass_context
+def tracks(ctx, fmt, output, fit_id):
+    """List tracks (persistent positions) with their names and life span."""
+    _emit(_study(ctx).tracks(fit_id), fmt, output, title="Tracks")
+
+
+@main.command("name-track")
+@click.argument("track", type=int)
+@click.argument("name")
+@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@click.pass_context
+def name_track(ctx, track, name, fit_id):
+    """Give TRACK a NAME (kept through re-alignment and updates)."""
+    _study(ctx).name_track(track, name, fit=fit_id)
+    click.echo(f"track {track} is now named {name!r}")
+
+
+@main.command()
+@listing
+@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@click.option("--min-confidence", type=float, default=None, help="Only moves at least this sure (default: all, flagged).")
+@click.pass_context
+def moves(ctx, fmt, output, fit_id, min_confidence):
+    """Who moved, from which track to which, when, and how sure."""
+    frame = _study(ctx).moves(fit_id)
+    if min_confidence is not None:
+        frame = frame[frame["confidence"].fillna(0) >= min_confidence]
+    if fmt == "table":
+        frame = frame.assign(note=["low confidence" if c < 0.5 else "" for c in frame["confidence"].fillna(1.0)])
+    _emit(frame, fmt, output, title="Moves")
+    if fmt == "table" and output is None:
+        click.echo("confidence: share of bootstrap refits that reproduce the move; a move below 0.5 may be noise.")
+
+
+@main.command()
+@listing
+@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@click.pass_context
+def transitions(ctx, fmt, output, fit_id):
+    """Transition counts and shares between tracks, per step and pooled."""
+    _emit(_study(ctx).transitions(fit_id), fmt, output, title="Transitions")
+
+
+EXPORTS = ("memberships", "blocks", "fit-periods", "structures", "moves", "transitions", "tracks", "mobility", "graphml")
 
 
 @main.command()
@@ -378,8 +452,13 @@ EXPORTS = ("memberships", "blocks", "fit-periods", "structures")
 @click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
 @click.pass_context
 def export(ctx, what, fmt, output, fit_id):
-    """Export results of the current fit: memberships, blocks, fit-periods ..."""
+    """Export results of the current fit (graphml: one file per period into folder -o)."""
     study = _study(ctx)
+    if what == "graphml":
+        folder = output or "graphml"
+        written = study.export_graphml(folder, fit=fit_id)
+        click.echo(f"wrote {len(written)} GraphML files to {folder}", err=True)
+        return
     frame = _export_frame(study, what, fit_id)
     _emit(frame, fmt, output)
 
@@ -391,6 +470,8 @@ def _export_frame(study, what: str, fit_id):
         return study.blocks(fit_id)
     if what == "structures":
         return _structures_frame(study.structures(fit=fit_id))
+    if what in ("moves", "transitions", "tracks", "mobility"):
+        return getattr(study, what)(fit_id)
     frame = study.fit_periods(fit_id)
     frame["diagnostics"] = [__import__("json").dumps(d) for d in frame["diagnostics"]]
     return frame
