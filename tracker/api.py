@@ -603,6 +603,100 @@ class Study:
             written.append(path)
         return written
 
+    # ------------------------------------------------------------------ report
+    def report_tables(self, fit: int | None = None, *, structure_draws: int = 199) -> tuple[dict, list[str], dict]:
+        """Every table the charts and the report use, the period order, and the method's metadata.
+
+        Tables: ``summary``, ``memberships``, ``blocks`` (with ``from_track``,
+        ``to_track`` once aligned), ``moves``, ``transitions``, ``tracks``,
+        ``structures``, ``structure_sentences``, ``diagnostics`` (fit against
+        the number of positions), ``permutation``.  A notebook user can pass
+        them to any chart of :mod:`tracker.report.charts`.
+        """
+        from datetime import datetime, timezone
+
+        from tracker import __version__
+
+        info = self.store.current_fit(fit)
+        fit_id = info["id"]
+        periods = self._fitted_periods(fit_id)
+        tables: dict = {"summary": self.summary()}
+        tables["summary"] = tables["summary"][tables["summary"]["period"].isin(periods)]
+        members = self.memberships(fit_id)
+        tables["memberships"] = members
+        blocks = self.store.blocks(fit_id)
+        positions = self.store.track_positions(fit_id)
+        aligned = not positions.empty
+        if aligned:
+            pos = positions.rename(columns={"position": "from_position", "track": "from_track"})
+            blocks = blocks.merge(pos, on=["period", "from_position"], how="left")
+            pos = positions.rename(columns={"position": "to_position", "track": "to_track"})
+            blocks = blocks.merge(pos, on=["period", "to_position"], how="left")
+            tracks = self.tracks(fit_id)
+            names = _track_names(tracks)
+            tracks["kind"] = ["split" if not pd.isna(p) else "birth" for p in tracks["parent"]]
+            tracks["parent"] = [names.get(int(p), f"T{int(p)}") if not pd.isna(p) else "" for p in tracks["parent"]]
+            tables["tracks"] = tracks
+            tables["moves"] = self.moves(fit_id)
+            tables["transitions"] = self.transitions(fit_id)
+        tables["blocks"] = blocks
+        fp = self.store.fit_periods(fit_id)
+        diag = []
+        for row in fp.itertuples(index=False):
+            auto = row.diagnostics.get("auto") if isinstance(row.diagnostics, dict) else None
+            if auto:
+                diag += [{"period": row.period, **entry} for entry in auto]
+            else:
+                diag.append({"period": row.period, "k": row.positions - (0 if pd.isna(row.isolates_position) else 1),
+                             "inconsistencies": row.inconsistencies,
+                             "density_correlation": row.density_correlation, "chosen": True})
+        tables["diagnostics"] = pd.DataFrame(diag)
+        tables["permutation"] = fp[["period", "density_correlation", "p_value"]].rename(
+            columns={"density_correlation": "observed"})
+        structures = self.structures(fit=fit_id, draws=structure_draws)
+        tables["structures"] = structures.drop(columns=["parts"], errors="ignore")
+        tables["structure_sentences"] = self.structure_sentences(structures)
+        params = info["params"]
+        relations = self.store.relations()
+        meta = {
+            "study": self.path.name if self.path else "study",
+            "method": params["method"], "positions": params["positions"], "criterion": params["criterion"],
+            "alpha": params.get("alpha"), "cut": params.get("cut"), "seed": params["seed"],
+            "permutation draws": params.get("draws"), "smoothing": params.get("smoothing"),
+            "options": ", ".join(f"{k}={v}" for k, v in (params.get("options") or {}).items()) or None,
+            "fit": fit_id, "fitted with version": info["version"], "version": __version__,
+            "created": datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
+            "relations": [f"{r.name} ({'directed' if r.directed else 'undirected'})" for r in relations],
+            "counts": self.store.counts(),
+        }
+        alignment = self.store.alignment_params(fit_id)
+        if alignment:
+            meta["alignment"] = ", ".join(f"{k}={v}" for k, v in alignment.items())
+        return tables, periods, meta
+
+    def report(self, path: str | os.PathLike, *, fit: int | None = None, anonymise: bool = False,
+               structure_draws: int = 199) -> Path:
+        """Write the self-contained offline HTML report; returns its path."""
+        from tracker.report.html import build_report
+
+        tables, periods, meta = self.report_tables(fit, structure_draws=structure_draws)
+        html = build_report(tables, periods, meta, anonymise=anonymise)
+        path = Path(path)
+        path.write_text(html, encoding="utf-8")
+        return path
+
+    def chart(self, name: str, path: str | os.PathLike, *, fit: int | None = None, **options) -> Path:
+        """Write one chart as PNG, SVG or Vega-Lite JSON (by the file's suffix)."""
+        from tracker.report.charts import CHARTS, make_chart, save_chart
+
+        if name not in CHARTS:
+            raise UsageError(f"unknown chart {name!r}; use one of: {', '.join(CHARTS)}")
+        tables, periods, _ = self.report_tables(fit, structure_draws=0 if name != "structure" else 99)
+        chart = make_chart(name, tables, periods, **options)
+        path = Path(path)
+        save_chart(chart, path)
+        return path
+
     def _fitted_periods(self, fit_id: int) -> list[str]:
         return self.store.fit_periods(fit_id)["period"].tolist()
 

@@ -477,5 +477,51 @@ def _export_frame(study, what: str, fit_id):
     return frame
 
 
+@main.command()
+@click.option("-o", "--output", default="roletrail-report.html", show_default=True, type=click.Path(dir_okay=False),
+              help="The HTML file to write.")
+@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@click.option("--anonymise", is_flag=True, help="Replace actor labels with codes (A001 ...) everywhere.")
+@click.option("--structure-draws", default=199, show_default=True, type=int,
+              help="Random images for the significance of ideal structures.")
+@click.pass_context
+def report(ctx, output, fit_id, anonymise, structure_draws):
+    """Write the self-contained offline HTML report (one file; no network needed)."""
+    path = _study(ctx).report(output, fit=fit_id, anonymise=anonymise, structure_draws=structure_draws)
+    click.echo(f"wrote {path}")
+
+
+@main.command()
+@click.argument("name")
+@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False), help="File: .png, .svg or .json (Vega-Lite).")
+@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@click.option("--actor", help="trajectory: the actor shown first.")
+@click.pass_context
+def chart(ctx, name, output, fit_id, actor):
+    """Write one chart NAME (flow, matrix, trajectory, timeline, measures, block-density, fit, structure)."""
+    options = {"actor": actor} if actor else {}
+    path = _study(ctx).chart(name, output, fit=fit_id, **options)
+    click.echo(f"wrote {path}")
+
+
+@main.command()
+@click.option("--scenario", default=None, help="Which bundled scenario (default: coastal-agencies); --list shows them.")
+@click.option("--out", default="roletrail-demo", show_default=True, type=click.Path(file_okay=False),
+              help="Folder for the demo study and its report.")
+@click.option("--list", "list_only", is_flag=True, help="List the bundled scenarios and stop.")
+@click.option("--draws", default=10, show_default=True, type=int, help="Bootstrap draws for move confidence.")
+def demo(scenario, out, list_only, draws):
+    """Run a bundled invented scenario end to end: import, fit, align, report."""
+    from tracker.demo import DEFAULT_SCENARIO, list_scenarios, run_demo
+
+    if list_only:
+        for name, spec in list_scenarios().items():
+            click.echo(f"{name}: {spec['title']} - {spec['description']}")
+        return
+    paths = run_demo(scenario or DEFAULT_SCENARIO, out, draws=draws, say=click.echo)
+    click.echo(f"study: {paths['study']}")
+    click.echo(f"report: {paths['report']} (open it in any browser; it works offline)")
+
+
 if __name__ == "__main__":  # pragma: no cover
     main()

@@ -238,6 +238,17 @@ def test_same_seed_same_answer():
     assert one.log_likelihood_ == two.log_likelihood_
 
 
+def test_warm_start_is_at_least_as_good_as_its_start():
+    # source: definition (greedy ascent from the given partition, best start kept)
+    rng = np.random.default_rng(9)
+    z = rng.integers(3, size=300)
+    A = planted_sbm(z, 3, 5.0, 2.0, rng)
+    fit = SBMPositions(3, restarts=1, init_labels=z).fit([A], [False])
+    assert fit.log_likelihood_ >= log_likelihood([A], [False], z)
+    with pytest.raises(UsageError):
+        SBMPositions(3, init_labels=z[:-1]).fit([A], [False])
+
+
 # ---------------------------------------------------------------- ICL
 
 

@@ -15,6 +15,8 @@ so a missing or broken module affects only its own method:
 ``regular``    :class:`tracker.blockmodel.regular.RegularPositions` (White & Reitz 1983)
 ``optimize``   :class:`tracker.blockmodel.optimize.OptimizedPositions`
                (Doreian, Batagelj & Ferligoj 2005)
+``sbm``        :class:`tracker.blockmodel.sbm.SBMPositions`
+               (Holland, Laskey & Leinhardt 1983; Karrer & Newman 2011)
 =============  ==================================================================
 
 Other methods join with :func:`register_method`.
@@ -85,6 +87,7 @@ METHODS: MutableMapping = _MethodRegistry(
         "concor": "tracker.blockmodel.concor:ConcorPositions",
         "regular": "tracker.blockmodel.regular:RegularPositions",
         "optimize": "tracker.blockmodel.optimize:OptimizedPositions",
+        "sbm": "tracker.blockmodel.sbm:SBMPositions",
     }
 )
 

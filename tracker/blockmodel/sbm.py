@@ -72,6 +72,9 @@ class SBMPositions:
         others from uniformly random partitions.  The best log-likelihood wins.
     max_sweeps : int, default 50
         Cap on the greedy sweeps of each start.
+    init_labels : array of int, shape (n,), optional
+        A partition to start from (for instance last period's positions), tried
+        in addition to the ``restarts`` starts.
 
     Attributes
     ----------
@@ -116,6 +119,10 @@ class SBMPositions:
       with :math:`\\kappa_k` the total degree of position ``k`` and ``M`` the
       total tie value.
 
+    Under degree correction an actor without ties carries no information
+    about its position (its activity parameter is 0); it keeps the position
+    it started in.
+
     Algorithm (a vectorised batch variant of Karrer & Newman's single-actor
     moves): each sweep computes every actor's tie totals to every position
     (``O(nnz)``), and from them the exact change of the profile
@@ -147,6 +154,7 @@ class SBMPositions:
         degree_corrected: bool = False,
         restarts: int = 5,
         max_sweeps: int = 50,
+        init_labels=None,
     ) -> None:
         self.n_positions = n_positions
         self.seed = seed
@@ -154,6 +162,7 @@ class SBMPositions:
         self.degree_corrected = degree_corrected
         self.restarts = restarts
         self.max_sweeps = max_sweeps
+        self.init_labels = init_labels
 
     def fit(self, matrices: Sequence[sp.sparray], directed: Sequence[bool]) -> "SBMPositions":
         """Fit the blockmodel to one period's relations.
@@ -175,10 +184,17 @@ class SBMPositions:
         rels, n = _prepare(matrices, directed, self.model, self.degree_corrected)
         B = _check_positions(self.n_positions, n)
         rng = np.random.default_rng(self.seed)
+        starts = ["given"] if self.init_labels is not None else []
+        starts += ["spectral"] + ["random"] * (int(self.restarts) - 1)
         best = None
-        for start in range(int(self.restarts)):
+        for kind in starts:
             child = np.random.default_rng(rng.integers(2**63))
-            init = _spectral_labels(rels, n, B, child) if start == 0 else _random_labels(n, B, child)
+            if kind == "given":
+                init = _given_labels(self.init_labels, n, B, child)
+            elif kind == "spectral":
+                init = _spectral_labels(rels, n, B, child)
+            else:
+                init = _random_labels(n, B, child)
             result = _greedy(rels, init, B, child, int(self.max_sweeps))
             if best is None or result[1] > best[1]:
                 best = result
@@ -384,7 +400,10 @@ def _check_matrices(matrices, directed, n: int | None = None) -> tuple[list[sp.c
         if not flag and coo.nnz:
             diff = abs(sp.csr_array(coo) - sp.csr_array(coo.T))
             if diff.nnz and diff.max() > 1e-9 * coo.data.max():
-                raise UsageError(f"relation {r} is marked undirected but its matrix is not symmetric; symmetrise it or mark it directed")
+                raise UsageError(
+                    f"relation {r} is marked undirected but its matrix is not symmetric; "
+                    "symmetrise it or mark it directed"
+                )
         out.append(coo)
     return out, flags, int(n)
 
@@ -650,6 +669,15 @@ def _keep_positions_filled(movers, labels, gain, sizes, B):
 # ----------------------------------------------------------------------------
 # Starts
 # ----------------------------------------------------------------------------
+
+
+def _given_labels(labels, n: int, B: int, rng: np.random.Generator) -> np.ndarray:
+    labels = np.asarray(labels)
+    if labels.shape != (n,) or not np.issubdtype(labels.dtype, np.integer):
+        raise UsageError(f"init_labels must hold one integer position per actor ({n}); pass last fit's labels")
+    if labels.size and (labels.min() < 0 or labels.max() >= B):
+        raise UsageError(f"init_labels must lie in 0 .. {B - 1}; renumber them or change n_positions")
+    return _fill_empty(labels, B, rng)
 
 
 def _random_labels(n: int, B: int, rng: np.random.Generator) -> np.ndarray:

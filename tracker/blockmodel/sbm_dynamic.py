@@ -260,7 +260,9 @@ def _prepare_periods(periods, bernoulli: bool, dc: bool) -> _Data:
         try:
             actors, matrices, directed = item
         except (TypeError, ValueError):
-            raise UsageError(f"period {t} is not an (actors, matrices, directed) triple; pass one triple per period") from None
+            raise UsageError(
+                f"period {t} is not an (actors, matrices, directed) triple; pass one triple per period"
+            ) from None
         actors = [str(a) for a in actors]
         if len(set(actors)) != len(actors):
             raise UsageError(f"period {t} lists an actor twice; give each present actor once")
@@ -268,7 +270,10 @@ def _prepare_periods(periods, bernoulli: bool, dc: bool) -> _Data:
         if flags0 is None:
             flags0 = flags
         elif flags != flags0:
-            raise UsageError(f"period {t} has other relations than period 0; give every period the same relations in the same order")
+            raise UsageError(
+                f"period {t} has other relations than period 0; "
+                "give every period the same relations in the same order"
+            )
         for a in actors:
             position.setdefault(a, len(position))
         index.append(np.array([position[a] for a in actors], dtype=np.int64))

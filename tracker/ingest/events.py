@@ -120,6 +120,7 @@ def validate_events(
         raw = frame[mapping.period_column].astype(str).str.strip()
         _first_bad(raw == "", raw, file, mapping.period_column, "has no period", "fill in the period or drop the row")
         _first_bad(raw.str.len() > 100, raw, file, mapping.period_column, "is too long for a period label", "use labels of at most 100 characters")
+        _no_nul(raw, file, mapping.period_column, "period")
         periods = pd.DataFrame({"label": raw.to_numpy(dtype=object), "sort_key": 0, "start": None, "end": None})
         occurred = np.full(len(frame), None, dtype=object)
 
@@ -144,11 +145,21 @@ def validate_events(
 def _labels(frame: pd.DataFrame, column: str, file: str, what: str) -> pd.Series:
     values = frame[column].astype(str).str.strip()
     _first_bad(values == "", values, file, column, f"has no {what} label", "fill it in or drop the row")
+    _no_nul(values, file, column, what)
     _first_bad(
         values.str.len() > MAX_LABEL, values, file, column,
         f"has a {what} label longer than {MAX_LABEL} characters", "shorten the label",
     )
     return values
+
+
+def _no_nul(values: pd.Series, file: str, column: str, what: str) -> None:
+    # A NUL character is a sign of a damaged or binary file, and it would cut
+    # the label short in C libraries and terminals that show it.
+    _first_bad(
+        values.str.contains("\x00", regex=False).to_numpy(dtype=bool), values, file, column,
+        f"has a NUL character in the {what} label (a damaged or binary file?)", "remove it, or export the data again as CSV text",
+    )
 
 
 def _weights(frame: pd.DataFrame, column: str, file: str) -> pd.Series:

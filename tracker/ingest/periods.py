@@ -135,7 +135,11 @@ def parse_dates(values: pd.Series, date_format: str | None = None) -> tuple[pd.S
     year_only = text.str.fullmatch(r"\d{4}").to_numpy(dtype=bool)
     dates = pd.Series(pd.NaT, index=values.index, dtype="datetime64[s]")
     if date_format:
-        dates[:] = pd.to_datetime(text, format=date_format, errors="coerce").astype("datetime64[s]")
+        try:
+            parsed = _naive(pd.to_datetime(text, format=date_format, errors="coerce"))
+        except (OverflowError, ValueError, TypeError) as exc:
+            raise UsageError(f"--date-format {date_format!r} cannot be used ({exc}); give a strftime format such as %d/%m/%Y") from None
+        dates[:] = parsed.astype("datetime64[s]")
         year_only = np.zeros(len(text), dtype=bool) if "%m" in date_format or "%d" in date_format or "%b" in date_format else year_only
     else:
         if year_only.any():
@@ -149,19 +153,36 @@ def parse_dates(values: pd.Series, date_format: str | None = None) -> tuple[pd.S
 
 
 def _iso(text: pd.Series) -> pd.Series:
-    """ISO dates and date-times; NaT where unreadable (including out-of-range years)."""
+    """ISO dates and date-times; NaT where unreadable (including out-of-range years).
+
+    A UTC offset (``2019-12-31T23:00:00+05:00``) is dropped and the local date
+    kept: the date written in the file is the date the event happened there.
+    """
     try:
-        return pd.to_datetime(text, format="ISO8601", errors="coerce").astype("datetime64[s]")
-    except (OverflowError, ValueError):
-        # One value out of the parser's range spoils the vectorised call: go row by row.
+        return _naive(pd.to_datetime(text, format="ISO8601", errors="coerce")).astype("datetime64[s]")
+    except (OverflowError, ValueError, TypeError):
+        # One value out of the parser's range, or offsets that differ from row
+        # to row, spoil the vectorised call: go row by row.
         return pd.Series([_iso_one(v) for v in text], index=text.index, dtype="datetime64[s]")
 
 
 def _iso_one(value: str):
     try:
-        return pd.to_datetime(value, format="ISO8601").to_datetime64().astype("datetime64[s]")
-    except (OverflowError, ValueError):
+        stamp = pd.to_datetime(value, format="ISO8601")
+        if pd.isna(stamp):
+            return np.datetime64("NaT", "s")
+        if stamp.tzinfo is not None:
+            stamp = stamp.tz_localize(None)
+        return stamp.to_datetime64().astype("datetime64[s]")
+    except (OverflowError, ValueError, TypeError):
         return np.datetime64("NaT", "s")
+
+
+def _naive(dates: pd.Series) -> pd.Series:
+    """Drop a time zone, keeping the local wall time."""
+    if isinstance(dates.dtype, pd.DatetimeTZDtype):
+        return dates.dt.tz_localize(None)
+    return dates
 
 
 def column_sort_keys(labels, existing: dict[str, int]) -> dict[str, int]:
