@@ -214,7 +214,12 @@ class Study:
         )
         labels = self._period_selection(periods)
         results = []
-        if settings.smoothing > 0:
+        if settings.options.get("joint"):
+            results = self._fit_joint(list(self.store.snapshots(labels, settings.relations)), settings)
+            if progress is not None:
+                for period in labels:
+                    progress(period)
+        elif settings.smoothing > 0:
             from tracker.longitudinal.smoothing import smoothed_fits
 
             results = smoothed_fits(self.store.snapshots(labels, settings.relations), settings, progress=progress)
@@ -225,6 +230,51 @@ class Study:
                     progress(snap.period)
         fit_id = self.store.save_fit(settings, results, __version__)
         return {"fit": fit_id, "periods": self.store.fit_periods(fit_id).drop(columns=["diagnostics"])}
+
+    def _fit_joint(self, snapshots: list, settings) -> list:
+        """One dynamic SBM over all periods (Matias & Miele 2017; Xu & Hero 2014).
+
+        Position k means the same in every period (block parameters are shared),
+        so position numbers are kept as fitted rather than re-ordered by size, and
+        each actor's membership carries its posterior probability.  Only actors
+        with ties in a period enter the model there; the period's tieless actors
+        take the isolates' position as with every method.
+        """
+        import dataclasses
+
+        from tracker.blockmodel.fitting import fit_partition
+        from tracker.blockmodel.partition import Partition
+        from tracker.blockmodel.sbm_dynamic import DynamicSBM
+
+        if settings.method != "sbm":
+            raise UsageError("a joint fit over all periods is a dynamic SBM: use --method sbm with --joint")
+        if settings.positions == "auto":
+            raise UsageError("--joint needs a fixed number of positions (--positions K)")
+        if settings.smoothing:
+            raise UsageError("--joint already links periods through its Markov chain; drop --smooth")
+        k = int(settings.positions)
+        opts = {key: value for key, value in settings.options.items()
+                if key in ("model", "degree_corrected", "restarts", "max_iter", "tol")}
+        data, tied_index = [], []
+        for snap in snapshots:
+            idx = np.flatnonzero(snap.tied())
+            tied_index.append(idx)
+            data.append(([snap.actors[i] for i in idx], [m[idx][:, idx] for m in snap.matrices], snap.directed))
+        model = DynamicSBM(k, seed=settings.seed, **opts).fit(data)
+        results = []
+        for t, snap in enumerate(snapshots):
+            idx = tied_index[t]
+            has_isolates = idx.size < snap.n
+            labels = np.full(snap.n, k, dtype=np.int64)
+            confidence = np.full(snap.n, np.nan)
+            if idx.size:
+                labels[idx] = model.labels_[t]
+                confidence[idx] = model.posteriors_[t].max(axis=1)
+            diagnostics = {"method": "sbm", "joint": True, "criterion": settings.criterion,
+                           "elbo": float(model.elbo_), "transition": np.round(model.transition_, 4).tolist()}
+            part = Partition(labels, k + (1 if has_isolates else 0), k if has_isolates else None, diagnostics)
+            results.append(dataclasses.replace(fit_partition(snap, part, settings), confidence=confidence))
+        return results
 
     def _period_selection(self, periods: Sequence[str] | None) -> list[str]:
         known = self.periods()
@@ -330,7 +380,7 @@ class Study:
         """
         from tracker.structures.change import structures_over_time
         from tracker.structures.coreperiphery import continuous_coreness, discrete_core_periphery
-        from tracker.structures.ideal import classify_image
+        from tracker.structures.ideal import classify_image, closest_ideal
 
         info = self.store.current_fit(fit)
         seed = info["seed"] if seed is None else seed
@@ -351,7 +401,7 @@ class Study:
                 if len(kept) < 2:
                     continue
                 img = sub.pivot(index="from_position", columns="to_position", values="image").loc[kept, kept].to_numpy()
-                best = classify_image(img, draws=draws, seed=seed)[0]
+                best = (classify_image(img, draws=draws, seed=seed) if draws else closest_ideal(img, seed=seed))[0]
                 rows.append((period, rel, best))
                 if snap is not None:
                     extra[(period, rel)] = _core_periphery_check(snap.matrix(rel), seed,
@@ -418,18 +468,28 @@ class Study:
         periods = self._aligned_inputs(fit_id)
         if not periods:
             raise UsageError(f"fit {fit_id} has no fitted periods; run roletrail fit first")
-        previous = None if rebuild else self._stored_alignment(fit_id, [p.period for p in periods])
+        joint = bool(info["params"].get("options", {}).get("joint"))
+        previous = None if rebuild or joint else self._stored_alignment(fit_id, [p.period for p in periods])
         done = 0 if previous is None else len(previous.periods)
-        alignment = align_positions(periods, previous=previous, weight_overlap=weight_overlap,
-                                    link_threshold=link_threshold, split_threshold=split_threshold, max_gap=max_gap)
-        if rebuild:
+        if joint:
+            alignment = _identity_alignment(periods)
+        else:
+            alignment = align_positions(periods, previous=previous, weight_overlap=weight_overlap,
+                                        link_threshold=link_threshold, split_threshold=split_threshold, max_gap=max_gap)
+        if rebuild and not joint:
             alignment = _carry_track_ids(alignment, periods, self.store.track_positions(fit_id), self.store.memberships(fit_id))
         members = _memberships_with_tracks(periods, alignment)
         order = [p.period for p in periods]
         moves = find_moves(members, order, ignore_tracks=() if include_isolates else (0,))
         moves = moves[["actor", "from_period", "to_period", "from_track", "to_track"]].copy()
         moves["confidence"] = np.nan
-        if draws and len(moves):
+        if joint and len(moves):
+            # Posterior of leaving track a and being in track b: the product of the two
+            # marginal posteriors (the chain's pairwise posterior is not stored).
+            conf = self.store.memberships(fit_id).set_index(["period", "actor"])["confidence"]
+            moves["confidence"] = [conf.get((f, a), np.nan) * conf.get((t, a), np.nan)
+                                   for a, f, t in zip(moves["actor"], moves["from_period"], moves["to_period"])]
+        elif draws and len(moves):
             moves["confidence"] = self._move_confidence(info, periods, alignment, moves, draws, seed)
         self.store.save_alignment(fit_id, params, alignment, moves)
         return {"fit": fit_id, "tracks": self.tracks(fit_id), "moves": self.store.moves(fit_id),
@@ -734,6 +794,29 @@ def _track_names(tracks: pd.DataFrame) -> dict[int, str]:
         int(t): (n if isinstance(n, str) and n else ("no ties" if iso else f"T{t}"))
         for t, n, iso in zip(tracks["track"], tracks["name"], tracks["isolates"])
     }
+
+
+def _identity_alignment(periods):
+    """Tracks of a joint fit: position k is track k + 1 in every period; isolates track 0."""
+    from tracker.longitudinal.align import Alignment, Link, TrackInfo
+
+    assignment, seen = {}, {}
+    for pp in periods:
+        sizes = np.bincount(pp.labels, minlength=pp.n_positions)
+        track = np.where(sizes > 0, np.arange(pp.n_positions) + 1, -1)
+        if pp.isolates is not None:
+            track[pp.isolates] = 0 if sizes[pp.isolates] else -1
+        assignment[pp.period] = track.astype(np.int64)
+        for t in track[track >= 0]:
+            seen.setdefault(int(t), []).append(pp.period)
+    tracks = {t: TrackInfo(t, ps[0], ps[-1], isolates=(t == 0)) for t, ps in sorted(seen.items())}
+    links = []
+    for a, b in zip(periods, periods[1:]):
+        common = set(assignment[a.period][assignment[a.period] > 0]) & set(assignment[b.period][assignment[b.period] > 0])
+        for t in sorted(common):
+            links.append(Link(a.period, b.period, int(t), int(t), int(np.flatnonzero(assignment[a.period] == t)[0]),
+                              int(np.flatnonzero(assignment[b.period] == t)[0]), 1.0, float("nan"), float("nan"), "continue"))
+    return Alignment(tuple(p.period for p in periods), tracks, assignment, links)
 
 
 def _memberships_with_tracks(periods, alignment) -> pd.DataFrame:

@@ -254,11 +254,13 @@ def _split(values) -> list[str] | None:
 @click.option("--restarts", type=int, help="optimize/sbm: random starts.")
 @click.option("--exact", is_flag=True, help="regular: the exact maximal regular partition (binary data).")
 @click.option("--degree-corrected", is_flag=True, help="sbm: degree-corrected model.")
+@click.option("--model", "sbm_model", type=click.Choice(["poisson", "bernoulli"]), help="sbm: Poisson for event counts (default) or Bernoulli for binary ties.")
+@click.option("--joint", is_flag=True, help="sbm: one dynamic model over all periods (positions mean the same in every period).")
 @click.option("--smooth", "smoothing", default=0.0, show_default=True, type=float,
               help="Penalty on changing position between consecutive periods (0 = each period alone).")
 @click.pass_context
 def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations, draws, k_range, linkage, measure,
-        restarts, exact, degree_corrected, smoothing):
+        restarts, exact, degree_corrected, sbm_model, joint, smoothing):
     """Find positions in every period (or --periods) and store the fit."""
     from rich.progress import Progress
 
@@ -277,6 +279,10 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
         options["exact"] = True
     if degree_corrected:
         options["degree_corrected"] = True
+    if sbm_model:
+        options["model"] = sbm_model
+    if joint:
+        options["joint"] = True
     study = _study(ctx)
     selected = _split(periods)
     total = len(selected) if selected else len(study.periods())
