@@ -193,7 +193,7 @@ class Study:
         k_min: int = 2,
         k_max: int = 8,
         options: dict | None = None,
-        smoothing: float = 0.0,
+        smoothing: float | str = "auto",
         progress: Callable[[str], None] | None = None,
     ) -> dict:
         """Find positions in each period (all by default) and store the fit.
@@ -203,9 +203,16 @@ class Study:
         A fit with the same settings as an earlier one extends it (new
         periods) or refreshes it; other settings make a new fit.  Either way
         the fit becomes current.
+
+        ``smoothing`` (default ``"auto"``) fits the periods together, paying a
+        penalty for each change of position between consecutive periods
+        (evolutionary clustering; see :attr:`FitSettings.smoothing` for the
+        default and why); ``0`` fits each period alone.  When only later
+        periods are fitted, the stored earlier periods of the same fit are
+        kept as they are and the new ones continue from them.
         """
         from tracker import __version__
-        from tracker.blockmodel.fitting import FitSettings, fit_snapshot
+        from tracker.blockmodel.fitting import FitSettings, fit_snapshot, smoothing_applies
 
         settings = FitSettings(
             method=method, positions=positions, criterion=criterion, alpha=alpha, cut=cut, seed=seed,
@@ -219,10 +226,12 @@ class Study:
             if progress is not None:
                 for period in labels:
                     progress(period)
-        elif settings.smoothing > 0:
+        elif smoothing_applies(settings) and len(self.periods()) > 1:
             from tracker.longitudinal.smoothing import smoothed_fits
 
-            results = smoothed_fits(self.store.snapshots(labels, settings.relations), settings, progress=progress)
+            frozen_periods, frozen = self._frozen_prefix(settings, labels)
+            snaps = list(self.store.snapshots(frozen_periods + labels, settings.relations))
+            results = smoothed_fits(snaps, settings, frozen=frozen, progress=progress)
         else:
             for snap in self.store.snapshots(labels, settings.relations):
                 results.append(fit_snapshot(snap, settings))
@@ -250,7 +259,7 @@ class Study:
             raise UsageError("a joint fit over all periods is a dynamic SBM: use --method sbm with --joint")
         if settings.positions == "auto":
             raise UsageError("--joint needs a fixed number of positions (--positions K)")
-        if settings.smoothing:
+        if not isinstance(settings.smoothing, str) and settings.smoothing > 0:
             raise UsageError("--joint already links periods through its Markov chain; drop --smooth")
         k = int(settings.positions)
         opts = {key: value for key, value in settings.options.items()
@@ -275,6 +284,41 @@ class Study:
             part = Partition(labels, k + (1 if has_isolates else 0), k if has_isolates else None, diagnostics)
             results.append(dataclasses.replace(fit_partition(snap, part, settings), confidence=confidence))
         return results
+
+    def _frozen_prefix(self, settings, labels: list[str]) -> tuple[list[str], list]:
+        """Stored periods of the same fit that come before ``labels``, as partitions to keep.
+
+        Only when every study period before the first requested one is stored;
+        otherwise those periods are simply refitted with the rest.
+        """
+        from tracker.blockmodel.partition import Partition
+
+        known = self.periods()
+        before = known[: known.index(labels[0])]
+        if not before:
+            return [], []
+        fits = self.store.fits()
+        same = [int(f) for f, p in zip(fits["fit"], fits["params"]) if __import__("json").loads(p) == settings.as_dict()]
+        if not same:
+            labels[:0] = [p for p in before if p not in labels]
+            return [], []
+        fit_id = same[-1]
+        fp = self.store.fit_periods(fit_id).set_index("period")
+        if not all(p in fp.index for p in before):
+            labels[:0] = [p for p in before if p not in labels]
+            return [], []
+        members = self.store.memberships(fit_id)
+        frozen = []
+        for period in before:
+            part = members[members["period"] == period]
+            snap_actors = self.store.snapshot(period, settings.relations).actors
+            if tuple(part["actor"]) != tuple(snap_actors):
+                labels[:0] = [p for p in before if p not in labels]
+                return [], []
+            iso = fp.loc[period, "isolates_position"]
+            frozen.append(Partition(part["position"].to_numpy() - 1, int(fp.loc[period, "positions"]),
+                                    None if iso is None or pd.isna(iso) else int(iso) - 1))
+        return before, frozen
 
     def _period_selection(self, periods: Sequence[str] | None) -> list[str]:
         known = self.periods()

@@ -256,8 +256,8 @@ def _split(values) -> list[str] | None:
 @click.option("--degree-corrected", is_flag=True, help="sbm: degree-corrected model.")
 @click.option("--model", "sbm_model", type=click.Choice(["poisson", "bernoulli"]), help="sbm: Poisson for event counts (default) or Bernoulli for binary ties.")
 @click.option("--joint", is_flag=True, help="sbm: one dynamic model over all periods (positions mean the same in every period).")
-@click.option("--smooth", "smoothing", default=0.0, show_default=True, type=float,
-              help="Penalty on changing position between consecutive periods (0 = each period alone).")
+@click.option("--smooth", "smoothing", default="auto", show_default=True,
+              help="Penalty (nats) on changing position between consecutive periods: auto, off (each period alone) or a number.")
 @click.pass_context
 def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations, draws, k_range, linkage, measure,
         restarts, exact, degree_corrected, sbm_model, joint, smoothing):
@@ -283,6 +283,14 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
         options["model"] = sbm_model
     if joint:
         options["joint"] = True
+    if smoothing not in ("auto",):
+        if smoothing in ("off", "none", "no"):
+            smoothing = 0.0
+        else:
+            try:
+                smoothing = float(smoothing)
+            except ValueError:
+                raise UsageError(f"--smooth takes auto, off or a number, not {smoothing!r}") from None
     study = _study(ctx)
     selected = _split(periods)
     total = len(selected) if selected else len(study.periods())

@@ -148,7 +148,7 @@ def _labels(frame: pd.DataFrame, column: str, file: str, what: str) -> pd.Series
     _no_nul(values, file, column, what)
     _first_bad(
         values.str.len() > MAX_LABEL, values, file, column,
-        f"has a {what} label longer than {MAX_LABEL} characters", "shorten the label",
+        f"has {'an' if what[0] in 'aeiou' else 'a'} {what} label longer than {MAX_LABEL} characters", "shorten the label",
     )
     return values
 

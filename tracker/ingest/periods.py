@@ -159,16 +159,28 @@ def _iso(text: pd.Series) -> pd.Series:
     kept: the date written in the file is the date the event happened there.
     """
     try:
-        return _naive(pd.to_datetime(text, format="ISO8601", errors="coerce")).astype("datetime64[s]")
+        parsed = _naive(pd.to_datetime(text, format="ISO8601", errors="coerce"))
     except (OverflowError, ValueError, TypeError):
-        # One value out of the parser's range, or offsets that differ from row
-        # to row, spoil the vectorised call: go row by row.
-        return pd.Series([_iso_one(v) for v in text], index=text.index, dtype="datetime64[s]")
+        # Offsets that differ from row to row spoil the vectorised call: drop
+        # them (the local time stays), and go row by row if that is not enough.
+        try:
+            parsed = pd.to_datetime(text.str.replace(_OFFSET, r"\1", regex=True), format="ISO8601", errors="coerce")
+        except (OverflowError, ValueError, TypeError):
+            return pd.Series([_iso_one(v) for v in text], index=text.index, dtype="datetime64[s]")
+    dates = parsed.astype("datetime64[s]")
+    if np.datetime_data(parsed.dtype)[0] == "ns":
+        # pandas gives a column one resolution: one value with nanoseconds
+        # makes every date outside 1677-2262 NaT.  Read those again one by one
+        # (only the ones shaped like ISO dates, so a file of other dates fails fast).
+        failed = dates.isna().to_numpy() & text.str.match(r"\d{4}-\d\d").to_numpy(dtype=bool)
+        if failed.any():
+            dates[failed] = np.array([_iso_one(v) for v in text[failed]], dtype="datetime64[s]")
+    return dates
 
 
 def _iso_one(value: str):
     try:
-        stamp = pd.to_datetime(value, format="ISO8601")
+        stamp = pd.to_datetime(_LONG_FRACTION.sub(r"\1", value), format="ISO8601")
         if pd.isna(stamp):
             return np.datetime64("NaT", "s")
         if stamp.tzinfo is not None:
@@ -176,6 +188,14 @@ def _iso_one(value: str):
         return stamp.to_datetime64().astype("datetime64[s]")
     except (OverflowError, ValueError, TypeError):
         return np.datetime64("NaT", "s")
+
+
+#: A UTC offset after a time of day (``...T10:00:00+05:00``, ``...10:00Z``).
+_OFFSET = r"(\d{2}:\d{2}(?::\d{2}(?:[.,]\d+)?)?)\s*(?:[Zz]|[+-]\d{2}(?::?\d{2})?)$"
+
+#: Fractions of a second beyond microseconds force nanosecond timestamps,
+#: which end in 2262; they mean nothing for the date of an event.
+_LONG_FRACTION = re.compile(r"([.,]\d{6})\d+")
 
 
 def _naive(dates: pd.Series) -> pd.Series:

@@ -23,6 +23,7 @@ from tracker.longitudinal.confidence import move_confidence, resample_matrices
 from tracker.longitudinal.movement import mobility, moves, stayers, trajectories, transitions
 from tracker.longitudinal.smoothing import (
     default_change_penalty,
+    smoothed_fits,
     smoothed_partitions,
     smoothed_refitter,
 )
@@ -44,6 +45,7 @@ __all__ = [
     "trajectories",
     "transitions",
     "default_change_penalty",
+    "smoothed_fits",
     "smoothed_partitions",
     "smoothed_refitter",
 ]

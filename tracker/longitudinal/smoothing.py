@@ -58,6 +58,11 @@ Design chosen here (and why):
   point of Ghasemian et al. [5]_); ``init="periods"`` starts from per-period fits
   chained by the Hungarian method instead.  Either comes from ``fit`` or from
   :func:`tracker.blockmodel.positions.find_positions` with ``method``.
+  Classification EM only climbs to a local optimum, so ``restarts`` random
+  starts are also tried (each first fitted with positions held constant over
+  time) and the best objective wins: on planted data a hierarchical-clustering
+  start (one large cluster and stragglers) alone recovered the positions with
+  adjusted Rand 0.4; with the restarts, 0.98.
 
 Labels of the result are shared across periods: position *k* is the same
 persistent position in every period, so the alignment of the result is
@@ -89,7 +94,7 @@ from tracker.blockmodel.partition import Partition
 from tracker.errors import UsageError
 from tracker.longitudinal.align import max_weight_matching
 
-__all__ = ["default_change_penalty", "smoothed_partitions", "smoothed_refitter"]
+__all__ = ["default_change_penalty", "smoothed_partitions", "smoothed_refitter", "smoothed_fits"]
 
 FitFunction = Callable[[Sequence, Sequence[bool], int, int], object]
 
@@ -172,8 +177,16 @@ def smoothed_partitions(
     list of Partition
         One per period: labels ``0 .. B-1`` shared across periods, and label ``B``
         for the period's tieless actors (``isolates``) when there are any.
-        ``diagnostics`` holds ``change_penalty``, ``iterations``, ``converged``,
-        ``changes`` (position changes into this period) and ``loglik``.
+        ``diagnostics`` holds ``change_penalty``, ``iterations``, ``converged``
+        (of the winning start), ``changes`` (position changes into this period),
+        ``loglik`` (this period) and ``objective`` (the whole penalised sum).
+
+    Notes
+    -----
+    Cost: one starting fit, then ``1 + 2 * restarts`` runs of at most ``max_iter``
+    rounds, each round a few sparse products per period and relation
+    (``O(ties * B)``) and a Viterbi pass (``O(actors * periods * B)``).  Memory is
+    proportional to the ties plus ``actors * B`` per period.
     """
     n_t = len(matrices_per_period)
     if len(actors_per_period) != n_t:
@@ -272,9 +285,9 @@ def smoothed_refitter(
     whose position differs; rates (shrunk to the pooled image of the observed
     periods, as in :func:`smoothed_partitions`) and positions are updated in turn.
     It returns labels in the same numbering as ``partitions`` (``n_positions`` for
-    tieless actors).  Use the same ``change_penalty``, ``stay_probability`` and
-    ``ties`` and ``image_pooling`` as the smoothed fit.  Cost per call: a few sparse products
-    over the period's ties.
+    tieless actors).  Pass the ``change_penalty``, ``stay_probability``, ``ties``
+    and ``image_pooling`` of the smoothed fit.  Cost per call: at most
+    ``max_iter`` rounds of a few sparse products over the period's ties.
     """
     penalty = default_change_penalty(n_positions, stay_probability) if change_penalty is None else float(change_penalty)
     periods = [str(p) for p in periods]
@@ -311,6 +324,71 @@ def smoothed_refitter(
         return np.where(tied, lab, n_positions)
 
     return fit_period
+
+
+def smoothed_fits(snapshots, settings, *, frozen: Sequence[Partition] = (),
+                  progress: Callable[[str], None] | None = None) -> list:
+    """Smoothed positions of a run of snapshots, described like per-period fits.
+
+    The adapter used by the study API: :func:`smoothed_partitions` with the
+    starting fit done by :func:`tracker.blockmodel.positions.find_positions`
+    (``settings.method``, ``settings.options``), ``change_penalty =
+    settings.smoothing`` (nats; :func:`default_change_penalty` gives a sensible
+    value, 2.9 for 3 positions), then each period described by
+    :func:`tracker.blockmodel.fitting.fit_partition`.  ``settings.positions =
+    "auto"`` chooses the number of positions once, on the pooled network.
+
+    Parameters
+    ----------
+    snapshots : sequence of tracker.snapshot.Snapshot
+        In time order, all with the same relations.
+    settings : tracker.blockmodel.fitting.FitSettings
+    frozen : sequence of Partition
+        Stored partitions of the first ``len(frozen)`` snapshots, kept exactly
+        (new periods added to an earlier smoothed fit).
+    progress : callable, optional
+        Called with each period's label once it is described.
+
+    Returns
+    -------
+    list of tracker.blockmodel.fitting.PeriodFit
+        One per snapshot after the frozen ones.
+    """
+    from tracker.blockmodel.fitting import fit_partition
+    from tracker.blockmodel.positions import find_positions
+
+    snapshots = list(snapshots)
+    if not snapshots:
+        return []
+    names = [r.name for r in snapshots[0].relations]
+    if any([r.name for r in snap.relations] != names for snap in snapshots):
+        raise UsageError("the periods hold different relations; select the relations to fit together")
+    directed = list(snapshots[0].directed)
+    common = dict(
+        method=settings.method, criterion=settings.criterion, alpha=settings.alpha, cut=settings.cut,
+        k_range=(settings.k_min, settings.k_max), **settings.options,
+    )
+    n_positions = settings.positions
+    if isinstance(n_positions, str):
+        chain = _Chain([s.actors for s in snapshots], [s.matrices for s in snapshots])
+        pooled = _pooled_matrices(chain, [s.matrices for s in snapshots], len(directed))
+        part = find_positions(pooled, directed, n_positions, seed=settings.seed, **common)
+        n_positions = part.n_positions - (part.isolates is not None)
+
+    def fit(matrices, flags, k, seed):
+        return find_positions(matrices, flags, k, seed=seed, **common)
+
+    parts = smoothed_partitions(
+        [s.matrices for s in snapshots], directed, [s.actors for s in snapshots], int(n_positions),
+        seed=settings.seed, change_penalty=None if settings.smoothing == "auto" else settings.smoothing, fit=fit,
+        frozen=list(frozen),
+    )
+    out = []
+    for snap, part in list(zip(snapshots, parts))[len(frozen):]:
+        out.append(fit_partition(snap, part, settings))
+        if progress is not None:
+            progress(snap.period)
+    return out
 
 
 # -- internals ----------------------------------------------------------------
@@ -562,16 +640,7 @@ def _initial_labels(chain, mats, directed, n_pos, fit, seed, init, fixed) -> lis
     n_t = len(mats)
     labels: list[np.ndarray] = []
     if init == "pooled":
-        pooled = []
-        for r in range(len(directed)):
-            acc = sp.csr_array((chain.n_actors, chain.n_actors), dtype=np.float64)
-            for t in range(n_t):
-                coo = sp.coo_array(mats[t][r])
-                g = chain.ids[t]
-                acc = acc + sp.csr_array(
-                    (coo.data, (g[coo.row], g[coo.col])), shape=(chain.n_actors, chain.n_actors)
-                )
-            pooled.append(sp.csr_array(acc))
+        pooled = _pooled_matrices(chain, mats, len(directed))
         tied = _tied(pooled, chain.n_actors)
         glob = _fit_labels(fit, pooled, directed, n_pos, seed, chain.n_actors)
         glob[~tied] = -1
@@ -594,6 +663,25 @@ def _initial_labels(chain, mats, directed, n_pos, fit, seed, init, fixed) -> lis
     for t, lab in enumerate(fixed):
         labels[t] = lab.copy()
     return [np.where(chain.tied[t], labels[t], -1) for t in range(n_t)]
+
+
+def _pooled_matrices(chain, mats, n_rel) -> list:
+    """Each relation summed over periods, on the union of actors (first-appearance order)."""
+    pooled = []
+    for r in range(n_rel):
+        rows, cols, vals = [], [], []
+        for t, period in enumerate(mats):
+            coo = sp.coo_array(period[r])
+            rows.append(chain.ids[t][coo.row])
+            cols.append(chain.ids[t][coo.col])
+            vals.append(coo.data)
+        shape = (chain.n_actors, chain.n_actors)
+        acc = sp.csr_array(
+            (np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=shape, dtype=np.float64
+        )
+        acc.sum_duplicates()
+        pooled.append(acc)
+    return pooled
 
 
 def _relabel_by_overlap(lab_new, lab_ref, n_pos) -> np.ndarray:

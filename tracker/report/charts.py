@@ -387,13 +387,14 @@ def matrix_chart(
                 "to_label:N",
                 title=None,
                 sort=alt.EncodingSortField("to_key", op="min"),
-                axis=alt.Axis(labelAngle=-45, labelFontSize=9),
+                axis=alt.Axis(labelAngle=-45, labelFontSize=9, labelLimit=110),
             ),
             y=alt.Y(
                 "from_label:N",
                 title=None,
                 sort=alt.EncodingSortField("from_key", op="min"),
-                axis=alt.Axis(labelFontSize=9),
+                # a fixed label width keeps the small multiples in line
+                axis=alt.Axis(labelFontSize=9, minExtent=110, labelLimit=110),
             ),
         )
         rect = base.mark_rect(stroke="white", strokeWidth=1).encode(
