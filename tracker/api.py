@@ -602,22 +602,41 @@ class Study:
         return Alignment(tuple(prefix), dict(sorted(tracks.items())), assignment, links)
 
     def _move_confidence(self, info: dict, periods: list, alignment, moves: pd.DataFrame, draws: int, seed: int):
+        """Bootstrap confidence of each move, refitting with the fit's own procedure.
+
+        A smoothed fit is refitted under the smoothed model with the other
+        periods held as fitted (:func:`tracker.longitudinal.smoothing.smoothed_refitter`);
+        a per-period fit by its method alone.
+        """
+        from tracker.blockmodel.fitting import FitSettings, smoothing_applies
+        from tracker.blockmodel.partition import Partition
         from tracker.blockmodel.positions import find_positions
         from tracker.longitudinal.confidence import move_confidence
+        from tracker.longitudinal.smoothing import smoothed_refitter
 
         params = info["params"]
-        needed = sorted(set(moves["from_period"]) | set(moves["to_period"]))
-        snaps = {s.period: s for s in self.store.snapshots(needed, params.get("relations"))}
+        settings = FitSettings(**{**params, "relations": tuple(params["relations"]) if params.get("relations") else None})
         by_period = {p.period: p for p in periods}
+        smoothed = smoothing_applies(settings) and len(periods) > 1
+        needed = [p.period for p in periods] if smoothed else sorted(set(moves["from_period"]) | set(moves["to_period"]))
+        snaps = {s.period: s for s in self.store.snapshots(needed, settings.relations)}
         directed = next(iter(snaps.values())).directed
-
-        def refit(period, matrices):
-            # The fit's own settings; tied-actor count K as fitted (not re-chosen by "auto").
-            pp = by_period[period]
-            k = pp.n_positions - (1 if pp.isolates is not None else 0)
-            return find_positions(matrices, directed, max(k, 1), method=params["method"], seed=params["seed"],
-                                  criterion=params["criterion"], alpha=params.get("alpha"), cut=params.get("cut"),
-                                  **params.get("options", {})).labels
+        if smoothed:
+            n_ordinary = max(p.n_positions - (p.isolates is not None) for p in periods)
+            refit = smoothed_refitter(
+                [snaps[p.period].matrices for p in periods], directed, [p.actors for p in periods],
+                [p.period for p in periods],
+                [Partition(p.labels, p.n_positions, p.isolates) for p in periods], n_ordinary,
+                change_penalty=None if settings.smoothing == "auto" else float(settings.smoothing),
+            )
+        else:
+            def refit(period, matrices):
+                # The fit's own settings; the number of positions as fitted (not re-chosen by "auto").
+                pp = by_period[period]
+                k = pp.n_positions - (1 if pp.isolates is not None else 0)
+                return find_positions(matrices, directed, max(k, 1), method=settings.method, seed=settings.seed,
+                                      criterion=settings.criterion, alpha=settings.alpha, cut=settings.cut,
+                                      **settings.options).labels
 
         return move_confidence(
             moves, refit,

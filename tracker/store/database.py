@@ -26,10 +26,16 @@ __all__ = [
     "upgrade",
     "current_revision",
     "head_revision",
+    "lock_for_writing",
 ]
 
 DEFAULT_DB = "roletrail.db"
 BUSY_TIMEOUT_S = 30.0
+
+#: Key of the PostgreSQL advisory lock that writers of a study hold (any fixed
+#: number: advisory locks belong to one database, so one study's writers queue
+#: only behind each other).
+_PG_WRITE_LOCK = 0x524F4C45
 
 
 def resolve_url(db: str | os.PathLike | None = None) -> str:
@@ -100,6 +106,29 @@ def open_engine(url: str, *, must_exist: bool = False) -> Engine:
     return engine
 
 
+def lock_for_writing(conn) -> None:
+    """Make a write transaction wait until no other roletrail process writes to the study.
+
+    SQLite transactions already start with ``BEGIN IMMEDIATE`` (see
+    :func:`open_engine`).  On PostgreSQL a transaction-level advisory lock
+    plays that part: writers queue (for at most ``BUSY_TIMEOUT_S``), readers
+    never wait (each sees the last committed state), and the lock goes with
+    the commit or rollback.  Call it first in every write transaction.
+    """
+    if conn.dialect.name != "postgresql":
+        return
+    from sqlalchemy.exc import OperationalError
+
+    conn.exec_driver_sql(f"SET LOCAL lock_timeout = '{int(BUSY_TIMEOUT_S * 1000)}ms'")
+    try:
+        conn.exec_driver_sql(f"SELECT pg_advisory_xact_lock({_PG_WRITE_LOCK})")
+    except OperationalError:
+        raise StoreError(
+            f"the study is busy: another roletrail process has been writing to it for over {BUSY_TIMEOUT_S:.0f} s; "
+            "wait for it to finish and try again"
+        ) from None
+
+
 def migrations_path() -> Path:
     """The folder holding the Alembic environment (installed copy or source tree)."""
     here = Path(__file__).resolve().parent.parent
@@ -158,6 +187,9 @@ def upgrade(engine: Engine, revision: str = "head") -> None:
     elif not _looks_empty(engine):
         raise StoreError("this database holds tables that are not a roletrail study; choose another --db")
     with engine.begin() as conn:
+        lock_for_writing(conn)
+        if revision == "head" and current_revision(conn) == script.get_current_head():
+            return  # another process upgraded it while this one waited
         command.upgrade(_alembic_config(conn), revision)
 
 
