@@ -167,3 +167,25 @@ def test_structural_method_through_the_registry():
     assert isinstance(part, Partition)
     assert part.labels.tolist() == [0, 0, 0, 0, 1, 1, 1, 1]
     assert part.diagnostics["method"] == "structural"
+
+
+def test_auto_positions_for_sbm_use_icl():
+    # Planted 3-position SBM (Holland, Laskey & Leinhardt 1983); the ICL of
+    # Daudin, Picard & Robin (2008) should pick 3, and the per-K table must show why.
+    import numpy as np
+    import scipy.sparse as sp
+
+    from tracker.blockmodel.positions import find_positions
+
+    rng = np.random.default_rng(4)
+    truth = np.repeat(np.arange(3), 30)
+    prob = np.where(truth[:, None] == truth[None, :], 0.5, 0.03)
+    adj = np.triu(rng.random((90, 90)) < prob, 1)
+    adj = (adj | adj.T).astype(float)
+    part = find_positions([sp.csr_array(adj)], [False], "auto", method="sbm", k_range=(1, 5), restarts=2,
+                          model="bernoulli")
+    table = part.diagnostics["auto"]
+    chosen = [row["k"] for row in table if row["chosen"]]
+    assert chosen == [3] and all("icl" in row for row in table)
+    assert max(table, key=lambda r: r["icl"])["k"] == 3
+    assert "ICL" in part.diagnostics["auto_rule"]

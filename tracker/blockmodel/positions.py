@@ -203,7 +203,7 @@ def find_positions(
     elif auto:
         sub_labels, table = _auto(cls, sub, directed, m, seed, criterion, alpha, cut, k_range, options)
         diagnostics["auto"] = table
-        diagnostics["auto_rule"] = AUTO_RULE.format(gain=MIN_GAIN)
+        diagnostics["auto_rule"] = getattr(cls, "auto_rule", None) or AUTO_RULE.format(gain=MIN_GAIN)
     else:
         k = int(n_positions)
         if k > m:
@@ -258,6 +258,8 @@ def _auto(cls, matrices, directed, m, seed, criterion, alpha, cut, k_range, opti
     if low < 1 or high < low:
         raise UsageError(f"k_range must satisfy 1 <= smallest <= largest; got {k_range!r}")
     ks = list(range(min(low, m), min(high, m) + 1))
+    if getattr(cls, "selects_positions_by_likelihood", False):
+        return _auto_by_likelihood(cls, matrices, directed, ks, seed, criterion, alpha, cut, options)
     fits, rows = [], []
     for k in ks:
         labels = _fit(cls, matrices, directed, k, seed, options)
@@ -272,6 +274,25 @@ def _auto(cls, matrices, directed, m, seed, criterion, alpha, cut, k_range, opti
     pos = ks.index(chosen)
     rows[pos]["chosen"] = True
     return fits[pos], rows
+
+
+def _auto_by_likelihood(cls, matrices, directed, ks, seed, criterion, alpha, cut, options):
+    """Statistical models choose K by their own criterion (for the SBM: ICL, Daudin et al. 2008)."""
+    best_k, table = cls.select(matrices, directed, (ks[0], ks[-1]), seed=seed, **options)
+    rows, chosen = [], None
+    for entry in table:
+        k = int(entry["n_positions"])
+        labels = _fit(cls, matrices, directed, k, seed, options)
+        _, compact = np.unique(labels, return_inverse=True)
+        part = Partition(compact, int(compact.max()) + 1)
+        stats = block_stats(matrices, directed, part)
+        err = inconsistencies(stats, image(stats, criterion, alpha=alpha, cut=cut))
+        rows.append({"k": k, "inconsistencies": int(err.sum()), "density_correlation": density_correlation(stats),
+                     "icl": float(entry["icl"]), "log_likelihood": float(entry["log_likelihood"]),
+                     "chosen": k == best_k})
+        if k == best_k:
+            chosen = labels
+    return chosen, rows
 
 
 def _canonical(sub_labels: np.ndarray, index: np.ndarray, n: int) -> tuple[np.ndarray, int]:

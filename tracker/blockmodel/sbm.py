@@ -145,6 +145,15 @@ class SBMPositions:
     [5, 5]
     """
 
+    #: ``find_positions(..., "auto")`` asks :meth:`select` instead of its elbow rule.
+    selects_positions_by_likelihood = True
+    auto_rule = "the number of positions with the largest integrated classification likelihood (ICL; Daudin, Picard & Robin 2008)"
+
+    @classmethod
+    def select(cls, matrices, directed, k_range, *, seed=0, **options):
+        """Choose the number of positions by ICL (see :func:`select_positions`)."""
+        return select_positions(matrices, directed, k_range, seed=seed, **options)
+
     def __init__(
         self,
         n_positions: int,
