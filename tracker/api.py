@@ -685,6 +685,14 @@ class Study:
         members = self.memberships(fit_id)
         return transitions(members, self._fitted_periods(fit_id), ignore_tracks=() if include_isolates else (0,))
 
+    def trajectories(self, fit: int | None = None) -> pd.DataFrame:
+        """Each actor's track in each period (wide: one column per period), with entry and exit periods."""
+        from tracker.longitudinal.movement import trajectories
+
+        fit_id = self.store.current_fit(fit)["id"]
+        self._require_alignment(fit_id)
+        return trajectories(self.memberships(fit_id), self._fitted_periods(fit_id)).reset_index()
+
     def mobility(self, fit: int | None = None) -> pd.DataFrame:
         """Per step: actors present in both periods, movers, mobility rate, entries, exits."""
         from tracker.longitudinal.movement import mobility

@@ -456,7 +456,8 @@ def transitions(ctx, fmt, output, fit_id):
     _emit(_study(ctx).transitions(fit_id), fmt, output, title="Transitions")
 
 
-EXPORTS = ("memberships", "blocks", "fit-periods", "structures", "moves", "transitions", "tracks", "mobility", "graphml")
+EXPORTS = ("memberships", "blocks", "fit-periods", "structures", "moves", "transitions", "tracks", "mobility",
+           "trajectories", "graphml")
 
 
 @main.command()
@@ -484,7 +485,7 @@ def _export_frame(study, what: str, fit_id):
         return study.blocks(fit_id)
     if what == "structures":
         return _structures_frame(study.structures(fit=fit_id))
-    if what in ("moves", "transitions", "tracks", "mobility"):
+    if what in ("moves", "transitions", "tracks", "mobility", "trajectories"):
         return getattr(study, what)(fit_id)
     frame = study.fit_periods(fit_id)
     frame["diagnostics"] = [__import__("json").dumps(d) for d in frame["diagnostics"]]
