@@ -7,10 +7,41 @@ from pathlib import Path
 
 import pytest
 
+from tests.pg import PG_ENV, BACKENDS, Databases, PgServer, pg_url
+
+
+@pytest.fixture(scope="session")
+def pg_server():
+    """The PostgreSQL test server (see tests/pg.py), or a skip when ROLETRAIL_TEST_PG is unset."""
+    url = pg_url()
+    if url is None:
+        pytest.skip(f"PostgreSQL run: set {PG_ENV} to a server URL (.ci/run starts one)")
+    server = PgServer(url)
+    yield server
+    server.close()
+
+
+@pytest.fixture(params=BACKENDS)
+def backend(request) -> str:
+    """The database back end a store test runs on: "sqlite", or "postgresql" when ROLETRAIL_TEST_PG is set."""
+    if request.param == "postgresql":
+        request.getfixturevalue("pg_server")
+    return request.param
+
 
 @pytest.fixture
-def study_path(tmp_path: Path) -> Path:
-    return tmp_path / "study.db"
+def new_db(backend, tmp_path: Path, request):
+    """new_db(name="study.db") -> a location for a new study: a SQLite path, or the URL of a fresh PostgreSQL database."""
+    server = request.getfixturevalue("pg_server") if backend == "postgresql" else None
+    made = Databases(backend, tmp_path, server)
+    yield made
+    made.close()
+
+
+@pytest.fixture
+def study_path(new_db):
+    """Where the ``study`` fixture's study lives: a path (SQLite) or a URL (PostgreSQL)."""
+    return new_db("study.db")
 
 
 @pytest.fixture

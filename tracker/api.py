@@ -51,6 +51,12 @@ class Study:
     def __init__(self, db: str | os.PathLike | None = None, *, create: bool = True) -> None:
         self.url = resolve_url(db)
         self.engine = open_engine(self.url, must_exist=not create)
+        if not create and sqlite_path(self.url) is None:
+            from sqlalchemy import inspect
+
+            if "alembic_version" not in inspect(self.engine).get_table_names():
+                raise UsageError(f"no study in {self.engine.url.render_as_string(hide_password=True)}; "
+                                 "import data first (roletrail import FILE ...)")
         upgrade(self.engine)
         self.store = Store(self.engine)
 
@@ -172,6 +178,18 @@ class Study:
     def actors(self) -> pd.DataFrame:
         """Actors with roster range, attributes and aliases."""
         return self.store.actors().drop(columns=["id"])
+
+    def check(self, *, repair: bool = False, all_fits: bool = False) -> list:
+        """Verify the study: integrity, orphans, ties against raw events, fits against memberships and blocks.
+
+        Returns the problems found (each with its fix); ``repair`` first rebuilds
+        every tie from the raw events (ties are derived data, nothing is lost).
+        """
+        from tracker.store.check import check_study, repair_ties
+
+        if repair:
+            repair_ties(self.engine)
+        return check_study(self.engine, max_fit_periods=None if all_fits else 50)
 
     def batches(self) -> pd.DataFrame:
         """Imported files: batch id, kind, file, rows read and loaded, self-ties dropped, time, hash."""

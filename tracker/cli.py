@@ -203,6 +203,24 @@ def batches(ctx, fmt, output):
 
 
 @main.command()
+@click.option("--repair", is_flag=True, help="First rebuild every tie from the raw events.")
+@click.option("--all-fits", is_flag=True, help="Check every stored fit period (default: the latest 50).")
+@click.pass_context
+def check(ctx, repair, all_fits):
+    """Verify the study; print each problem with its fix. Exit status 0 = no problem, 1 = problems."""
+    problems = _study(ctx).check(repair=repair, all_fits=all_fits)
+    if repair:
+        click.echo("rebuilt every tie from the raw events")
+    if not problems:
+        click.echo("study ok: integrity, references, ties and fits are consistent")
+        return
+    for problem in problems:
+        click.echo(str(problem))
+    click.echo(f"{len(problems)} problem(s) found")
+    sys.exit(1)
+
+
+@main.command()
 @click.argument("other_name")
 @click.argument("actor")
 @click.pass_context

@@ -43,7 +43,14 @@ def render(frame: pd.DataFrame, fmt: str, *, title: str | None = None, digits: i
     return _table(frame, title, digits)
 
 
+#: Above this many rows a plain fixed-width table is written instead of a rich one
+#: (rich lays out every cell, about half a millisecond a row).
+PLAIN_ROWS = 500
+
+
 def _table(frame: pd.DataFrame, title: str | None, digits: int) -> str:
+    if len(frame) > PLAIN_ROWS:
+        return _plain_table(frame, title, digits)
     from rich.console import Console
     from rich.table import Table
     from rich.text import Text
@@ -58,6 +65,19 @@ def _table(frame: pd.DataFrame, title: str | None, digits: int) -> str:
     console = Console(file=io.StringIO(), width=200, color_system=None, highlight=False)
     console.print(table)
     return console.file.getvalue()
+
+
+def _plain_table(frame: pd.DataFrame, title: str | None, digits: int) -> str:
+    cells = [[_cell(v, digits) for v in row] for row in frame.itertuples(index=False, name=None)]
+    header = [str(c) for c in frame.columns]
+    widths = [max([len(h)] + [len(r[i]) for r in cells]) for i, h in enumerate(header)]
+    numeric = [pd.api.types.is_numeric_dtype(frame[c]) and not pd.api.types.is_bool_dtype(frame[c]) for c in frame.columns]
+
+    def line(values):
+        return "  ".join(v.rjust(w) if num else v.ljust(w) for v, w, num in zip(values, widths, numeric)).rstrip()
+
+    out = ([title] if title else []) + [line(header), "  ".join("-" * w for w in widths)] + [line(r) for r in cells]
+    return "\n".join(out) + "\n"
 
 
 def _cell(value, digits: int) -> str:

@@ -43,9 +43,9 @@ def _run(db, *args):
 
 
 @pytest.fixture
-def fitted(tmp_path):
+def fitted(tmp_path, new_db):
     truth = planted_events(tmp_path / "events.csv")
-    db = tmp_path / "s.db"
+    db = new_db("s.db")
     _run(db, "import", str(tmp_path / "events.csv"), "--source", "a", "--target", "b", "--date", "d", "--relation", "kind")
     _run(db, "import-actors", str(tmp_path / "actors.csv"))
     return db, truth, tmp_path
@@ -134,7 +134,7 @@ def test_every_method_recovers_the_planted_structure(fitted):
             assert study.fit_periods()["inconsistencies"].iloc[0] == 0
 
 
-def test_structures_name_a_planted_core_periphery(tmp_path):
+def test_structures_name_a_planted_core_periphery(tmp_path, new_db):
     # A perfect core-periphery image (Borgatti & Everett 1999): core tied to all, periphery only to the core.
     rows = []
     core = [f"core {i}" for i in range(4)]
@@ -145,7 +145,7 @@ def test_structures_name_a_planted_core_periphery(tmp_path):
                 if a != b:
                     rows += [(a, b, year), (b, a, year)]
     pd.DataFrame(rows, columns=["a", "b", "y"]).to_csv(tmp_path / "cp.csv", index=False)
-    db = tmp_path / "cp.db"
+    db = new_db("cp.db")
     _run(db, "import", str(tmp_path / "cp.csv"), "--source", "a", "--target", "b", "--date", "y")
     _run(db, "fit", "--positions", "2", "--draws", "0")
     table = pd.read_csv(io.StringIO(_run(db, "structures", "--format", "csv", "--draws", "19")))

@@ -37,9 +37,9 @@ def moving_events(path, years=(2016, 2017, 2018, 2019), mover="agency 05", move_
     pd.DataFrame(rows, columns=["a", "b", "d"]).to_csv(path, index=False)
 
 
-def test_align_finds_the_planted_move_and_keeps_earlier_tracks(tmp_path):
+def test_align_finds_the_planted_move_and_keeps_earlier_tracks(tmp_path, new_db):
     moving_events(tmp_path / "early.csv", years=(2016, 2017, 2018))
-    db = tmp_path / "s.db"
+    db = new_db("s.db")
     _run(db, "import", str(tmp_path / "early.csv"), "--source", "a", "--target", "b", "--date", "d")
     _run(db, "fit", "--positions", "2", "--draws", "0")
     out = _run(db, "align", "--draws", "10")
@@ -67,9 +67,9 @@ def test_align_finds_the_planted_move_and_keeps_earlier_tracks(tmp_path):
     assert after.loc[(after["period"] == 2019) & (after["actor"] == "agency 05"), "track"].iloc[0] == core
 
 
-def test_names_survive_a_rebuild_and_transitions_add_up(tmp_path):
+def test_names_survive_a_rebuild_and_transitions_add_up(tmp_path, new_db):
     moving_events(tmp_path / "e.csv")
-    db = tmp_path / "s.db"
+    db = new_db("s.db")
     _run(db, "import", str(tmp_path / "e.csv"), "--source", "a", "--target", "b", "--date", "d")
     _run(db, "fit", "--positions", "2", "--draws", "0")
     _run(db, "align", "--draws", "0")
@@ -77,6 +77,11 @@ def test_names_survive_a_rebuild_and_transitions_add_up(tmp_path):
     _run(db, "align", "--rebuild", "--draws", "0")
     tracks = json.loads(_run(db, "tracks", "--format", "json"))
     assert any(t["name"] == "senders" for t in tracks)
+    traj = pd.read_csv(io.StringIO(_run(db, "export", "trajectories"))).set_index("actor")
+    assert traj.loc["agency 05", "entry"] == 2016 and traj.loc["agency 05", "exit"] == 2019
+    assert traj.loc["agency 05", "2017"] != traj.loc["agency 05", "2018"]  # the planted move
+    mobility = pd.read_csv(io.StringIO(_run(db, "export", "mobility")))
+    assert mobility["movers"].sum() == 1
     trans = pd.read_csv(io.StringIO(_run(db, "transitions", "--format", "csv")))
     per_step = trans[trans["from_period"] != "all"]
     # row shares of each transition matrix sum to 1; counts against pandas.crosstab of memberships
@@ -90,9 +95,9 @@ def test_names_survive_a_rebuild_and_transitions_add_up(tmp_path):
         assert reference.loc[row.from_track, row.to_track] == row.count
 
 
-def test_graphml_has_position_and_track(tmp_path):
+def test_graphml_has_position_and_track(tmp_path, new_db):
     moving_events(tmp_path / "e.csv")
-    db = tmp_path / "s.db"
+    db = new_db("s.db")
     _run(db, "import", str(tmp_path / "e.csv"), "--source", "a", "--target", "b", "--date", "d")
     _run(db, "fit", "--positions", "2", "--draws", "0")
     _run(db, "align", "--draws", "0")
@@ -107,18 +112,18 @@ def test_graphml_has_position_and_track(tmp_path):
         assert graph.number_of_edges() == study.snapshot("2018").matrix("tie").nnz
 
 
-def test_moves_before_align_is_a_clear_error(tmp_path):
+def test_moves_before_align_is_a_clear_error(tmp_path, new_db):
     moving_events(tmp_path / "e.csv")
-    db = tmp_path / "s.db"
+    db = new_db("s.db")
     _run(db, "import", str(tmp_path / "e.csv"), "--source", "a", "--target", "b", "--date", "d")
     _run(db, "fit", "--positions", "2", "--draws", "0")
     result = CliRunner().invoke(main, ["--db", str(db), "moves"])
     assert result.exit_code == 2 and "run roletrail align first" in result.output
 
 
-def test_joint_sbm_fit_gives_posterior_confidence(tmp_path):
+def test_joint_sbm_fit_gives_posterior_confidence(tmp_path, new_db):
     moving_events(tmp_path / "e.csv")
-    db = tmp_path / "s.db"
+    db = new_db("s.db")
     _run(db, "import", str(tmp_path / "e.csv"), "--source", "a", "--target", "b", "--date", "d")
     _run(db, "fit", "--method", "sbm", "--joint", "--positions", "2", "--model", "bernoulli", "--draws", "0")
     members = pd.read_csv(io.StringIO(_run(db, "export", "memberships")))

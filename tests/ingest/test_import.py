@@ -35,13 +35,13 @@ def test_import_counts_self_ties_and_builds_periods(study, write_csv):
     assert dense[0, 2] == 1 and dense[2, 0] == 1 and dense.sum() == 2
 
 
-def test_bom_semicolon_and_tab_files_read_alike(study_path, tmp_path, write_csv):
+def test_bom_semicolon_and_tab_files_read_alike(new_db, write_csv):
     from tracker.api import Study
 
     results = []
     for i, (delimiter, bom) in enumerate(((",", False), (";", True), ("\t", False))):
         path = write_csv(ROWS, name=f"e{i}.csv", delimiter=delimiter, bom=bom)
-        with Study(tmp_path / f"s{i}.db") as s:
+        with Study(new_db(f"s{i}.db")) as s:
             _import(s, path)
             results.append(s.summary())
     pd.testing.assert_frame_equal(results[0], results[1])
@@ -73,15 +73,15 @@ def test_undirected_pairs_are_counted_once(study, write_csv):
     assert (mat == mat.T).all() and mat[0, 1] == 2
 
 
-def test_period_column_and_quarters(study_path, tmp_path, write_csv):
+def test_period_column_and_quarters(new_db, write_csv):
     from tracker.api import Study
 
     rows = [("a", "b", "wave 2"), ("b", "c", "wave 1"), ("c", "a", "wave 10")]
-    with Study(tmp_path / "w.db") as s:
+    with Study(new_db("w.db")) as s:
         s.import_events(write_csv(rows, header=("s", "t", "wave")), source="s", target="t", period_column="wave")
         assert s.periods() == ["wave 1", "wave 2", "wave 10"]
     rows = [("a", "b", "2019-02-01", "x"), ("b", "c", "2019-11-30", "x")]
-    with Study(tmp_path / "q.db") as s:
+    with Study(new_db("q.db")) as s:
         _import(s, write_csv(rows, name="q.csv"), period="quarter")
         assert s.periods() == ["2019Q1", "2019Q4"]
 

@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import sqlite3
-
 import pytest
 from sqlalchemy import inspect, text
 
@@ -12,9 +10,9 @@ from tracker.store.database import downgrade, head_revision, open_engine, resolv
 from tracker.store.models import Base
 
 
-def test_upgrade_from_empty_to_head_and_back_down(tmp_path):
+def test_upgrade_from_empty_to_head_and_back_down(new_db):
     # Alembic's own upgrade/downgrade commands run every revision in turn.
-    engine = open_engine(resolve_url(tmp_path / "s.db"))
+    engine = open_engine(resolve_url(new_db("s.db", empty=True)))
     upgrade(engine)
     names = set(inspect(engine).get_table_names())
     assert {"actors", "actor_aliases", "relations", "batches", "events", "periods", "ties"} <= names
@@ -26,20 +24,20 @@ def test_upgrade_from_empty_to_head_and_back_down(tmp_path):
     assert {"events", "ties"} <= set(inspect(engine).get_table_names())
 
 
-def test_migrated_schema_matches_the_models(tmp_path):
+def test_migrated_schema_matches_the_models(new_db):
     # Reference: alembic.autogenerate.compare_metadata finds no difference.
     from alembic.autogenerate import compare_metadata
     from alembic.runtime.migration import MigrationContext
 
-    engine = open_engine(resolve_url(tmp_path / "s.db"))
+    engine = open_engine(resolve_url(new_db("s.db", empty=True)))
     upgrade(engine)
     with engine.connect() as conn:
         diff = compare_metadata(MigrationContext.configure(conn), Base.metadata)
     assert diff == []
 
 
-def test_study_from_a_newer_version_is_refused(tmp_path):
-    engine = open_engine(resolve_url(tmp_path / "s.db"))
+def test_study_from_a_newer_version_is_refused(new_db):
+    engine = open_engine(resolve_url(new_db("s.db", empty=True)))
     upgrade(engine)
     with engine.begin() as conn:
         conn.execute(text("UPDATE alembic_version SET version_num = 'f00dfeed'"))
@@ -47,12 +45,12 @@ def test_study_from_a_newer_version_is_refused(tmp_path):
         upgrade(engine)
 
 
-def test_foreign_table_is_not_taken_for_a_study(tmp_path):
-    path = tmp_path / "other.db"
-    with sqlite3.connect(path) as conn:
-        conn.execute("CREATE TABLE invoices (id INTEGER)")
+def test_foreign_table_is_not_taken_for_a_study(new_db):
+    engine = open_engine(resolve_url(new_db("other.db", empty=True)))
+    with engine.begin() as conn:
+        conn.execute(text("CREATE TABLE invoices (id INTEGER)"))
     with pytest.raises(StoreError, match="not a roletrail study"):
-        upgrade(open_engine(resolve_url(path)))
+        upgrade(engine)
 
 
 def test_sqlite_pragmas(tmp_path):

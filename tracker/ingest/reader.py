@@ -144,10 +144,10 @@ class TableFile:
                     if len(frame):
                         yield frame.index[0], frame
                 self.bytes_read = self.size
-            except UnicodeDecodeError as exc:
+            except UnicodeDecodeError:
+                line, offset = _first_bad_utf8(self.path)
                 raise InputError(
-                    f"is not valid UTF-8 text (byte {counter.count - len(exc.object) + exc.start + 1} or near it)"
-                    if isinstance(exc.object, bytes) else "is not valid UTF-8 text",
+                    f"is not valid UTF-8 text (line {line}, byte {offset})",
                     file=self.name,
                     fix="re-save it as UTF-8 (CSV UTF-8 in a spreadsheet program)",
                 ) from None
@@ -222,6 +222,27 @@ class TableFile:
                 f"cannot be read as Parquet after row {first - 1} ({type(exc).__name__})",
                 file=self.name, fix="check that the file is complete, or export it again",
             ) from None
+
+
+def _first_bad_utf8(path: Path) -> tuple[int, int]:
+    """Line (from 1) and byte offset (from 1) of the first byte that is not UTF-8."""
+    decoder = codecs.getincrementaldecoder("utf-8")()
+    line, done = 1, 0
+    with open(path, "rb") as handle:
+        for block in iter(lambda: handle.read(1 << 20), b""):
+            try:
+                decoder.decode(block)
+            except UnicodeDecodeError as exc:
+                # The decoder may hold back the start of a character from the previous block.
+                held = len(exc.object) - len(block)
+                return line + exc.object[: exc.start].count(b"\n"), done - held + exc.start + 1
+            line += block.count(b"\n")
+            done += len(block)
+    try:
+        decoder.decode(b"", final=True)
+    except UnicodeDecodeError as exc:  # a character cut short at the end of the file
+        return line, done - len(exc.object) + exc.start + 1
+    return line, done
 
 
 def _strict_chunks(reader, wide_row_error) -> Iterator[pd.DataFrame]:

@@ -36,6 +36,7 @@ import pandas as pd
 from sqlalchemy import and_, case, exists, func, inspect, literal, or_, select, text
 from sqlalchemy.engine import Engine
 
+from tracker.store.database import write_transaction
 from tracker.store.models import (
     Actor, ActorAlias, Base, Block, Event, Fit, FitPeriod, Membership, Period, RelationRow, Setting, Tie,
 )
@@ -117,7 +118,7 @@ def repair_ties(engine: Engine) -> int:
     from tracker.store.repository import Store
 
     store = Store(engine)
-    with engine.begin() as conn:
+    with write_transaction(engine) as conn:
         ids = list(conn.execute(select(Period.id)).scalars())
         # Ties of periods that no longer exist cannot be rebuilt: drop them.
         conn.execute(Tie.__table__.delete().where(~exists().where(Period.id == Tie.period_id)))
@@ -174,8 +175,8 @@ def _orphans(conn, names: set[str]) -> list[Problem]:
         child, col, parent, pcol = keys[i]
         problems.append(Problem(
             "orphans",
-            f"{count} rows of {child} point at {parent} rows that do not exist ({col} = {first} and others)" if count > 1 else
-            f"1 row of {child} points at a {parent} row that does not exist ({col} = {first})",
+            f"{count} rows of {child} point at missing rows of {parent} ({col} = {first} and others)" if count > 1 else
+            f"1 row of {child} points at a missing row of {parent} ({col} = {first})",
             f"restore the missing {parent} rows from a backup, or delete the orphans: "
             f"DELETE FROM {child} WHERE {col} NOT IN (SELECT {pcol} FROM {parent})"
             + ("; then " + REPAIR_TIES_HINT if child == "events" else ""),
@@ -253,22 +254,22 @@ def _ties(conn) -> list[Problem]:
     src = case((keep_order, Event.source_id), else_=Event.target_id)
     dst = case((keep_order, Event.target_id), else_=Event.source_id)
     key = ["period_id", "relation_id", "source_id", "target_id"]
-    expected = pd.DataFrame(
+    expected = _frame(
         conn.execute(
             select(Event.period_id, Event.relation_id, src, dst, func.sum(Event.weight), func.count())
             .join(RelationRow, RelationRow.id == Event.relation_id)
             .where(Event.source_id != Event.target_id)
             .group_by(Event.period_id, Event.relation_id, src, dst)
-        ).all(),
-        columns=[*key, "value", "n_events"],
+        ),
+        [*key, "value", "n_events"],
     )
     expected = expected[expected["value"].astype(float) > 0]
-    stored = pd.DataFrame(
+    stored = _frame(
         conn.execute(
             select(Tie.period_id, Tie.relation_id, Tie.source_id, Tie.target_id, Tie.value, Tie.n_events, RelationRow.directed)
             .outerjoin(RelationRow, RelationRow.id == Tie.relation_id)
-        ).all(),
-        columns=[*key, "value", "n_events", "directed"],
+        ),
+        [*key, "value", "n_events", "directed"],
     )
     problems = []
     labels = _Labels(conn)
@@ -395,7 +396,7 @@ def _fit_blocks(engine: Engine, max_fit_periods: int | None) -> list[Problem]:
     if max_fit_periods is not None and len(todo) > max_fit_periods:
         pick = np.unique(np.linspace(0, len(todo) - 1, max(max_fit_periods, 1)).round().astype(int))
         todo = [todo[i] for i in pick]
-    findings: dict[str, list[str]] = {"absent": [], "unplaced": [], "blocks": [], "block_rows": []}
+    findings: dict[str, list[str]] = {"unreadable": [], "absent": [], "unplaced": [], "blocks": [], "block_rows": []}
     for fit_id, period_id, label, n_positions in todo:
         where = f"fit {fit_id}, period {label}"
         with engine.connect() as conn:
@@ -410,7 +411,11 @@ def _fit_blocks(engine: Engine, max_fit_periods: int | None) -> list[Problem]:
                 .where(Block.fit_id == fit_id, Block.period_id == period_id)
             ).all(), columns=["relation", "k", "l", "ties", "possible", "density", "mean_value", "max_value"])
         relations = sorted(blocks["relation"].unique())
-        snap = store.snapshot(label, relations or None)
+        try:
+            snap = store.snapshot(label, relations or None)
+        except Exception as exc:  # noqa: BLE001 - damage reported above (orphans, ties) breaks snapshots
+            findings["unreadable"].append(f"{where}: {type(exc).__name__}")
+            continue
         present = set(snap.actors)
         unplaced = [a for a in snap.actors if a not in members]
         absent = [a for a in members if a not in present]
@@ -448,6 +453,7 @@ def _fit_blocks(engine: Engine, max_fit_periods: int | None) -> list[Problem]:
                 break
     problems = []
     texts = {
+        "unreadable": ("fitted periods cannot be read as networks", "repair the problems listed before this one first"),
         "unplaced": ("actors present in fitted periods have no position (data imported after the fit?)", _REFIT),
         "absent": ("fitted periods place actors that are not present in them", _REFIT),
         "block_rows": ("fitted periods have a block table of the wrong size", _REFIT),
@@ -475,6 +481,14 @@ class _Labels:
         source = self.actors.get(row.source_id, f"#{row.source_id}")
         target = self.actors.get(row.target_id, f"#{row.target_id}")
         return f"{period} {relation} {source!r}->{target!r}"
+
+
+def _frame(result, columns: list[str]) -> pd.DataFrame:
+    """A query result as a frame (rows turned into plain tuples first: much faster for large results)."""
+    rows = [tuple(r) for r in result]
+    if not rows:  # typed, so that merging with a non-empty frame works
+        return pd.DataFrame({c: pd.Series(dtype="int64") for c in columns})
+    return pd.DataFrame(rows, columns=columns)
 
 
 def _names(labels: Iterable[str]) -> str:

@@ -9,10 +9,12 @@ package; a study written by a newer roletrail (an unknown revision) is refused.
 from __future__ import annotations
 
 import os
+from contextlib import contextmanager
+from typing import Iterator
 from pathlib import Path
 
 from sqlalchemy import create_engine, event, inspect
-from sqlalchemy.engine import Engine, make_url
+from sqlalchemy.engine import Connection, Engine, make_url
 from sqlalchemy.exc import ArgumentError
 
 from tracker.errors import StoreError
@@ -99,11 +101,30 @@ def open_engine(url: str, *, must_exist: bool = False) -> Engine:
 
         @event.listens_for(engine, "begin")
         def _sqlite_begin(conn):  # pragma: no cover - exercised by every test
-            # IMMEDIATE takes the write lock at the start, so two writers wait
-            # for each other (busy_timeout) instead of failing half-way.
-            conn.exec_driver_sql("BEGIN IMMEDIATE")
+            # A write transaction (see write_transaction) starts IMMEDIATE: it takes
+            # the write lock at once, so two writers wait for each other
+            # (busy_timeout) instead of failing half-way.  Reads start a plain
+            # deferred transaction: in WAL mode they see the last committed state
+            # and neither wait for a writer nor block one.
+            conn.exec_driver_sql("BEGIN IMMEDIATE" if conn.info.get(_WRITING) else "BEGIN")
 
     return engine
+
+
+_WRITING = "roletrail_writing"
+
+
+@contextmanager
+def write_transaction(engine: Engine) -> Iterator[Connection]:
+    """One write transaction: waits for other writers, then holds the write lock until commit."""
+    with engine.connect() as conn:
+        conn.info[_WRITING] = True
+        try:
+            with conn.begin():
+                lock_for_writing(conn)
+                yield conn
+        finally:
+            conn.info.pop(_WRITING, None)
 
 
 def lock_for_writing(conn) -> None:
@@ -186,8 +207,7 @@ def upgrade(engine: Engine, revision: str = "head") -> None:
             return
     elif not _looks_empty(engine):
         raise StoreError("this database holds tables that are not a roletrail study; choose another --db")
-    with engine.begin() as conn:
-        lock_for_writing(conn)
+    with write_transaction(engine) as conn:
         if revision == "head" and current_revision(conn) == script.get_current_head():
             return  # another process upgraded it while this one waited
         command.upgrade(_alembic_config(conn), revision)
@@ -197,7 +217,7 @@ def downgrade(engine: Engine, revision: str) -> None:
     """Take a study's schema back to ``revision`` (``"base"`` removes every table)."""
     from alembic import command
 
-    with engine.begin() as conn:
+    with write_transaction(engine) as conn:
         command.downgrade(_alembic_config(conn), revision)
 
 

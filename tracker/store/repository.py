@@ -8,18 +8,24 @@ frames or :class:`tracker.snapshot.Snapshot` objects; no SQL escapes this module
 
 from __future__ import annotations
 
+import itertools
 import json
+from contextlib import contextmanager
 from datetime import datetime, timezone
 from typing import Iterable, Iterator, Sequence
 
 import numpy as np
 import pandas as pd
-from sqlalchemy import and_, case, delete, func, insert, literal, or_, select, union, update
+from sqlalchemy import and_, case, delete, func, insert, literal, or_, select, update
 from sqlalchemy.engine import Connection, Engine
+from sqlalchemy.ext.compiler import compiles
+from sqlalchemy.sql.elements import ColumnElement
+from sqlalchemy.sql.visitors import InternalTraversal
 
 from tracker.errors import StoreError, UsageError
 from tracker.ingest.periods import PeriodScheme, column_sort_keys, parse_scheme_name
 from tracker.snapshot import Relation, Snapshot, build_snapshot
+from tracker.store.database import write_transaction
 from tracker.store.models import (
     Actor, ActorAlias, AlignmentRow, Batch, Block, Event, Fit, FitPeriod, Membership, Move, Period, RelationRow,
     Setting, Tie, Track, TrackLink, TrackPosition,
@@ -50,6 +56,12 @@ class Store:
 
     def __init__(self, engine: Engine) -> None:
         self.engine = engine
+
+    @contextmanager
+    def _write(self) -> Iterator[Connection]:
+        """One write transaction, after any other process's write to the study (see ``lock_for_writing``)."""
+        with write_transaction(self.engine) as conn:
+            yield conn
 
     # ------------------------------------------------------------------ settings
     def setting(self, key: str, conn: Connection | None = None) -> str | None:
@@ -89,7 +101,7 @@ class Store:
         iterating rolls everything back.  Ties of every period the batch touches
         are rebuilt from the raw events.
         """
-        with self.engine.begin() as conn:
+        with self._write() as conn:
             self._check_scheme(conn, scheme)
             earlier = self._earlier_batches(conn, "events", content_hash, file_name, replace)
             touched: set[int] = set()
@@ -141,7 +153,7 @@ class Store:
         self, *, file_name: str, content_hash: str, mapping: dict, roster: pd.DataFrame, replace: bool = False
     ) -> ImportReport:
         """Load a validated roster (see :func:`tracker.ingest.roster.validate_roster`)."""
-        with self.engine.begin() as conn:
+        with self._write() as conn:
             earlier = self._earlier_batches(conn, "roster", content_hash, file_name, replace)
             if earlier:
                 conn.execute(delete(Batch).where(Batch.id.in_(earlier)))
@@ -270,9 +282,10 @@ class Store:
                 "VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
                 list(zip(*columns)),
             )
+        elif conn.dialect.name == "postgresql":
+            _copy_rows(conn, "events", _EVENT_COLUMNS, zip(*columns))
         else:
-            names = ("batch_id", "row", "source_id", "target_id", "relation_id", "occurred", "period_id", "weight")
-            conn.execute(insert(Event), [dict(zip(names, values)) for values in zip(*columns)])
+            conn.execute(insert(Event), [dict(zip(_EVENT_COLUMNS, values)) for values in zip(*columns)])
 
     def _rebuild_ties(self, conn, period_ids: Iterable[int]) -> None:
         """Recompute the ties of some periods from their raw events.
@@ -310,7 +323,7 @@ class Store:
         """Periods in time order: columns id, label, sort_key, start, end."""
         with self.engine.connect() as conn:
             rows = conn.execute(
-                select(Period.id, Period.label, Period.sort_key, Period.start, Period.end).order_by(Period.sort_key, Period.label)
+                select(Period.id, Period.label, Period.sort_key, Period.start, Period.end).order_by(Period.sort_key, _code_points(Period.label))
             ).all()
         return pd.DataFrame(rows, columns=["id", "label", "sort_key", "start", "end"])
 
@@ -319,7 +332,7 @@ class Store:
 
     def relations(self) -> list[Relation]:
         with self.engine.connect() as conn:
-            rows = conn.execute(select(RelationRow.name, RelationRow.directed).order_by(RelationRow.name)).all()
+            rows = conn.execute(select(RelationRow.name, RelationRow.directed).order_by(_code_points(RelationRow.name))).all()
         return [Relation(name, bool(d)) for name, d in rows]
 
     def batches(self) -> pd.DataFrame:
@@ -350,53 +363,99 @@ class Store:
             return self._snapshot(conn, period, relations)
 
     def snapshots(self, periods: Sequence[str] | None = None, relations: Sequence[str] | None = None) -> Iterator[Snapshot]:
-        """Snapshots of several periods (all by default), in time order, read in one transaction."""
+        """Snapshots of several periods (all by default), in time order, read in one transaction.
+
+        Actors, periods and relations are read once (not once per period), so
+        a study of many periods costs one query per period for its ties (and
+        one for its events of weight 0, when the study has any).
+        """
         labels = self.period_labels() if periods is None else list(periods)
         with self.engine.connect() as conn:
+            order = _driver_rows(conn, select(Actor.id, Actor.label).order_by(_code_points(Actor.label)))
+            order_ids = np.fromiter((r[0] for r in order), dtype=np.int64, count=len(order))
+            rank = np.full(int(order_ids.max(initial=0)) + 1, -1, dtype=np.int64)
+            rank[order_ids] = np.arange(len(order_ids))  # actor id -> place in label order
+            context = {
+                "order": (order_ids, np.array([r[1] for r in order], dtype=object), rank),
+                "periods": {r.label: r for r in conn.execute(select(Period.label, Period.id, Period.sort_key, Period.start, Period.end))},
+                "relations": conn.execute(select(RelationRow.id, RelationRow.name, RelationRow.directed)
+                                          .order_by(_code_points(RelationRow.name))).all(),
+                "roster": conn.execute(select(Actor.id).where(Actor.in_roster.is_(True)).limit(1)).first() is not None,
+                "zero": conn.execute(select(Event.id).where(Event.weight <= 0).limit(1)).first() is not None,
+            }
             for label in labels:
-                yield self._snapshot(conn, label, relations)
+                yield self._snapshot(conn, label, relations, context)
 
-    def _snapshot(self, conn, period: str, relations: Sequence[str] | None) -> Snapshot:
-        prow = conn.execute(select(Period.id, Period.sort_key, Period.start, Period.end).where(Period.label == period)).first()
+    def _snapshot(self, conn, period: str, relations: Sequence[str] | None, context: dict | None = None) -> Snapshot:
+        """One period's snapshot; ``context`` holds what :meth:`snapshots` read once for every period."""
+        if context is not None and period in context["periods"]:
+            prow = context["periods"][period]
+        else:
+            prow = conn.execute(
+                select(Period.label, Period.id, Period.sort_key, Period.start, Period.end).where(Period.label == period)
+            ).first()
         if prow is None:
             known = [p for p in conn.execute(select(Period.label).order_by(Period.sort_key)).scalars()]
             shown = ", ".join(known[:8]) + (" ..." if len(known) > 8 else "")
             raise UsageError(f"no period {period!r} in this study; the periods are {shown or 'none (import data first)'}")
-        rel_rows = conn.execute(select(RelationRow.id, RelationRow.name, RelationRow.directed).order_by(RelationRow.name)).all()
+        rel_rows = context["relations"] if context is not None else conn.execute(
+            select(RelationRow.id, RelationRow.name, RelationRow.directed).order_by(_code_points(RelationRow.name))
+        ).all()
         if relations is not None:
             by_name = {r.name: r for r in rel_rows}
             missing = [r for r in relations if r not in by_name]
             if missing:
                 raise UsageError(f"no relation {missing[0]!r} in this study; the relations are {', '.join(by_name) or 'none'}")
             rel_rows = [by_name[r] for r in relations]
-        actor_ids, labels = self._present(conn, prow)
-        index = pd.Series(np.arange(len(actor_ids)), index=actor_ids)
-        ties = pd.DataFrame(
-            conn.execute(
-                select(Tie.relation_id, Tie.source_id, Tie.target_id, Tie.value).where(Tie.period_id == prow.id)
-            ).all(),
-            columns=["relation_id", "source_id", "target_id", "value"],
-        )
+        rows = _driver_rows(conn, select(Tie.relation_id, Tie.source_id, Tie.target_id, Tie.value).where(Tie.period_id == prow.id))
+        ties = np.fromiter(itertools.chain.from_iterable(rows), dtype=np.float64, count=4 * len(rows)).reshape(-1, 4)
+        ends = ties[:, 1:3].astype(np.int64)
+        actor_ids, labels, index = self._present(conn, prow, ends, context)
+        relation = ties[:, 0].astype(np.int64)
         triples = []
         for r in rel_rows:
-            part = ties[ties["relation_id"] == r.id]
-            triples.append(
-                (index[part["source_id"]].to_numpy(), index[part["target_id"]].to_numpy(), part["value"].to_numpy(dtype=float))
-            )
+            part = relation == r.id
+            triples.append((index[part, 0], index[part, 1], ties[part, 3]))
         rels = [Relation(r.name, bool(r.directed)) for r in rel_rows]
         return build_snapshot(period, labels, rels, triples)
 
-    def _present(self, conn, prow) -> tuple[np.ndarray, list[str]]:
-        in_events = union(
-            select(Event.source_id.label("aid")).where(Event.period_id == prow.id),
-            select(Event.target_id.label("aid")).where(Event.period_id == prow.id),
-        ).subquery()
-        ids = set(conn.execute(select(in_events.c.aid)).scalars())
-        ids |= self._roster_present(conn, prow)
-        rows = conn.execute(select(Actor.id, Actor.label).where(Actor.id.in_(ids)).order_by(Actor.label)).all() if len(ids) <= 30000 else [
-            r for r in conn.execute(select(Actor.id, Actor.label).order_by(Actor.label)).all() if r.id in ids
-        ]
-        return np.array([r.id for r in rows], dtype=np.int64), [r.label for r in rows]
+    def _present(self, conn, prow, tie_ends: np.ndarray, context: dict | None = None) -> tuple[np.ndarray, list[str], np.ndarray]:
+        """Ids and labels of the actors present in a period, in label order, and the places of ``tie_ends`` among them.
+
+        The actors of the period's events are the ends of its ties plus the
+        ends of its events of weight <= 0: weights are not negative, so an
+        event of positive weight makes its pair's sum positive, and every
+        pair with a positive sum has a tie (see :meth:`_rebuild_ties`).  This
+        reads the few non-positive events instead of every event.
+        """
+        zero = _driver_rows(
+            conn, select(Event.source_id, Event.target_id).where(Event.period_id == prow.id, Event.weight <= 0)
+        ) if context is None or context["zero"] else []
+        roster = self._roster_present(conn, prow) if context is None or context["roster"] else set()
+        others = np.concatenate([np.array(zero, dtype=np.int64).ravel(), np.fromiter(roster, dtype=np.int64, count=len(roster))])
+        if context is not None:
+            # Mark the present actors in the study's label order: no sorting per period.
+            order_ids, order_labels, rank = context["order"]
+            ends = np.concatenate([tie_ends.ravel(), others])
+            if ends.size and (ends.min() < 0 or ends.max() >= len(rank) or (rank[ends] < 0).any()):
+                raise _damaged(prow)
+            keep = np.zeros(len(order_ids), dtype=bool)
+            keep[rank[ends]] = True
+            place = np.cumsum(keep) - 1
+            return order_ids[keep], order_labels[keep].tolist(), place[rank[tie_ends]]
+        ids = np.unique(np.concatenate([tie_ends.ravel(), others]))
+        if len(ids) <= 30000:
+            rows = conn.execute(select(Actor.id, Actor.label).where(Actor.id.in_(ids.tolist())).order_by(_code_points(Actor.label))).all()
+        else:
+            wanted = set(ids.tolist())
+            rows = [r for r in conn.execute(select(Actor.id, Actor.label).order_by(_code_points(Actor.label))).all() if r.id in wanted]
+        actor_ids = np.array([r.id for r in rows], dtype=np.int64)
+        by_id = np.argsort(actor_ids)
+        sorted_ids = actor_ids[by_id]
+        at = np.searchsorted(sorted_ids, tie_ends)
+        if tie_ends.size and (at.max() >= len(sorted_ids) or (sorted_ids[at] != tie_ends).any()):
+            raise _damaged(prow)
+        return actor_ids, [r.label for r in rows], by_id[at]
 
     def _roster_present(self, conn, prow) -> set[int]:
         scheme = self.period_scheme(conn)
@@ -423,7 +482,7 @@ class Store:
         """Actors with their roster range, attributes and aliases."""
         with self.engine.connect() as conn:
             rows = conn.execute(
-                select(Actor.id, Actor.label, Actor.in_roster, Actor.first_period, Actor.last_period, Actor.attributes).order_by(Actor.label)
+                select(Actor.id, Actor.label, Actor.in_roster, Actor.first_period, Actor.last_period, Actor.attributes).order_by(_code_points(Actor.label))
             ).all()
             aliases = conn.execute(select(ActorAlias.actor_id, ActorAlias.alias)).all()
         frame = pd.DataFrame(rows, columns=["id", "actor", "in_roster", "first", "last", "attributes"])
@@ -443,7 +502,7 @@ class Store:
         alias, actor = alias.strip(), actor.strip()
         if not alias or not actor or alias == actor:
             raise UsageError("give two different, non-empty names: roletrail alias OTHER-NAME ACTOR")
-        with self.engine.begin() as conn:
+        with self._write() as conn:
             aliases = self._aliases(conn)
             if actor not in aliases:
                 raise UsageError(f"no actor {actor!r} in this study; check the spelling (roletrail actors lists them)")
@@ -479,7 +538,7 @@ class Store:
 
         if not scheme.dated:
             raise UsageError("periods read from a column cannot be re-cut; re-import with --date instead")
-        with self.engine.begin() as conn:
+        with self._write() as conn:
             current = self.period_scheme(conn)
             if current is None:
                 raise UsageError("this study has no events yet; import data first")
@@ -522,7 +581,7 @@ class Store:
         """
         now = _now()
         key = settings.key()
-        with self.engine.begin() as conn:
+        with self._write() as conn:
             fit_id = conn.execute(select(Fit.id).where(Fit.settings_key == key).order_by(Fit.id.desc())).scalars().first()
             if fit_id is None:
                 fit_id = conn.execute(
@@ -537,6 +596,7 @@ class Store:
             periods = dict(conn.execute(select(Period.label, Period.id)).all())
             relations = dict(conn.execute(select(RelationRow.name, RelationRow.id)).all())
             aliases = self._aliases(conn)
+            self._check_fitted_data(conn, periods, period_fits)
             self._invalidate_alignment(conn, fit_id, [periods[pf.period] for pf in period_fits])
             for pf in period_fits:
                 pid = periods[pf.period]
@@ -582,6 +642,34 @@ class Store:
             conn.execute(update(Fit).where(Fit.id == fit_id).values(current=True))
         return int(fit_id)
 
+    def _check_fitted_data(self, conn, periods: dict, period_fits: Sequence) -> None:
+        """Refuse to store fits of data that changed after the fit read it.
+
+        An import, alias or re-cut may commit while a fit computes (the fit
+        reads its snapshots, then works without holding the study).  Inside
+        the saving transaction each period must still have the actors the fit
+        placed and, per relation, the tie count and value total it fitted.
+        """
+        for pf in period_fits:
+            try:
+                snap = self._snapshot(conn, pf.period, list(pf.relations)) if pf.period in periods else None
+            except UsageError:
+                snap = None
+            same = snap is not None and tuple(snap.actors) == tuple(pf.actors)
+            for r, (rel, mat) in enumerate(zip(snap.relations, snap.matrices) if same else ()):
+                half = 1 if rel.directed else 2  # an undirected pair fills two cells
+                st = pf.stats
+                if mat.nnz != half * int(st.network_ties[r]) or not np.isclose(
+                    float(mat.sum()), half * float(st.network_total[r]), rtol=1e-9, atol=0.0
+                ):
+                    same = False
+                    break
+            if not same:
+                raise StoreError(
+                    f"the data of period {pf.period} changed while the fit ran (an import, alias or re-cut at the "
+                    "same time); nothing was saved. Run roletrail fit again"
+                )
+
     def _invalidate_alignment(self, conn, fit_id: int, period_ids: Sequence[int]) -> None:
         """Refitting a period that was already aligned voids the alignment from that period on.
 
@@ -614,7 +702,7 @@ class Store:
         Track names already given are kept (by track id).
         """
         now = _now()
-        with self.engine.begin() as conn:
+        with self._write() as conn:
             names = dict(conn.execute(select(Track.track, Track.name).where(Track.fit_id == fit_id)).all())
             for model in (Move, TrackLink, TrackPosition, Track, AlignmentRow):
                 conn.execute(delete(model).where(model.fit_id == fit_id))
@@ -661,7 +749,7 @@ class Store:
 
     def save_moves(self, fit_id: int, moves: pd.DataFrame) -> None:
         """Replace a fit's moves (e.g. with bootstrap confidences added)."""
-        with self.engine.begin() as conn:
+        with self._write() as conn:
             self._write_moves(conn, fit_id, moves)
 
     def alignment_params(self, fit_id: int) -> dict | None:
@@ -709,13 +797,13 @@ class Store:
                 select(Actor.label, p_from.label, p_to.label, Move.from_track, Move.to_track, Move.confidence)
                 .join(Actor, Actor.id == Move.actor_id).join(p_from, p_from.id == Move.from_period_id)
                 .join(p_to, p_to.id == Move.to_period_id).where(Move.fit_id == fit_id)
-                .order_by(p_to.sort_key, Actor.label)
+                .order_by(p_to.sort_key, _code_points(Actor.label))
             ).all()
         return pd.DataFrame(rows, columns=["actor", "from_period", "to_period", "from_track", "to_track", "confidence"])
 
     def name_track(self, fit_id: int, track: int, name: str) -> None:
         """Give a track a name (kept through re-alignment and updates)."""
-        with self.engine.begin() as conn:
+        with self._write() as conn:
             found = conn.execute(select(Track.track).where(Track.fit_id == fit_id, Track.track == track)).first()
             if found is None:
                 known = list(conn.execute(select(Track.track).where(Track.fit_id == fit_id).order_by(Track.track)).scalars())
@@ -752,7 +840,7 @@ class Store:
 
     def use_fit(self, fit_id: int) -> None:
         """Make a fit the current one."""
-        with self.engine.begin() as conn:
+        with self._write() as conn:
             if conn.execute(select(Fit.id).where(Fit.id == fit_id)).first() is None:
                 raise UsageError(f"no fit {fit_id} in this study; roletrail fits lists them")
             conn.execute(update(Fit).values(current=False))
@@ -779,7 +867,7 @@ class Store:
             rows = conn.execute(
                 select(Period.label, Actor.label, Membership.position, Membership.isolate, Membership.confidence)
                 .join(Period, Period.id == Membership.period_id).join(Actor, Actor.id == Membership.actor_id)
-                .where(Membership.fit_id == fit_id).order_by(Period.sort_key, Actor.label)
+                .where(Membership.fit_id == fit_id).order_by(Period.sort_key, _code_points(Actor.label))
             ).all()
         frame = pd.DataFrame(rows, columns=["period", "actor", "position", "isolate", "confidence"])
         frame["isolate"] = frame["isolate"].astype(bool)
@@ -796,7 +884,7 @@ class Store:
                        Block.possible, Block.density, Block.mean_value, Block.max_value, Block.image, *image_cols)
                 .join(Period, Period.id == Block.period_id).join(RelationRow, RelationRow.id == Block.relation_id)
                 .where(Block.fit_id == fit_id)
-                .order_by(Period.sort_key, RelationRow.name, Block.from_position, Block.to_position)
+                .order_by(Period.sort_key, _code_points(RelationRow.name), Block.from_position, Block.to_position)
             ).all()
         return pd.DataFrame(rows, columns=["period", "relation", "from_position", "to_position", "ties", "possible",
                                            "density", "mean_value", "max_value", "image", "image_zero_block",
@@ -818,3 +906,69 @@ def _bind(name: str):
     from sqlalchemy import bindparam
 
     return bindparam(name)
+
+
+class _code_points(ColumnElement):
+    """A text column ordered by code point on every back end.
+
+    SQLite compares text byte by byte (its BINARY collation, which is
+    code-point order for UTF-8, like Python's ``sorted``).  A PostgreSQL
+    server sorts by its locale instead (en-US puts "agency a" before
+    "Agency C"); actor order fixes the rows of every matrix and so a seeded
+    fit's tie-breaks, so the "C" collation (byte order) is asked for there.
+    """
+
+    inherit_cache = True
+    _traverse_internals = [("column", InternalTraversal.dp_clauseelement)]
+
+    def __init__(self, column) -> None:
+        self.column = column
+        self.type = column.type
+
+
+@compiles(_code_points)
+def _code_points_default(element, compiler, **kw):
+    return compiler.process(element.column, **kw)
+
+
+@compiles(_code_points, "postgresql")
+def _code_points_postgresql(element, compiler, **kw):
+    return compiler.process(element.column, **kw) + ' COLLATE "C"'
+
+
+def _damaged(prow) -> StoreError:
+    return StoreError(
+        f"the study is damaged: ties or events of period {prow.label} name actors that do not exist; "
+        "restore it from a backup, or find and remove the bad rows with roletrail check"
+    )
+
+
+def _driver_rows(conn: Connection, stmt) -> list[tuple]:
+    """Every row of a query as the driver's plain tuples.
+
+    Skips SQLAlchemy's row objects and result processing, several times
+    faster for the many thousands of rows of a period's ties; only for
+    integer, float and text columns, which every driver returns as such.
+    """
+    result = conn.execute(stmt)
+    try:
+        return result.cursor.fetchall()
+    finally:
+        result.close()
+
+
+_EVENT_COLUMNS = ("batch_id", "row", "source_id", "target_id", "relation_id", "occurred", "period_id", "weight")
+
+
+def _copy_rows(conn: Connection, table: str, columns: Sequence[str], rows: Iterable[tuple]) -> None:
+    """Bulk-load rows with PostgreSQL's COPY, inside the connection's open transaction.
+
+    COPY streams every row in one command, several times faster than batched
+    INSERTs (psycopg 3 writes the rows; None becomes NULL).  ``table`` and
+    ``columns`` are fixed names from this module, never user input.
+    """
+    names = ", ".join(f'"{c}"' for c in columns)
+    with conn.connection.driver_connection.cursor() as cursor:
+        with cursor.copy(f'COPY "{table}" ({names}) FROM STDIN') as copy:
+            for row in rows:
+                copy.write_row(row)
