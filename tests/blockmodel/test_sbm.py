@@ -14,6 +14,7 @@ from sklearn.metrics import adjusted_rand_score
 from tracker.blockmodel import sbm
 from tracker.blockmodel.sbm import SBMPositions, log_likelihood, select_positions
 from tracker.errors import UsageError
+from tests.helpers.planted import planted_sbm
 
 VARIANTS = [("poisson", False), ("bernoulli", False), ("poisson", True)]
 
@@ -116,29 +117,6 @@ def test_move_gains_equal_brute_force_differences(graph, variant):
 
 
 # ---------------------------------------------------------------- fits
-
-
-def planted_sbm(z, B, c_in, c_out, rng, directed=False):
-    """Sparse planted partition: Poisson number of ties per block pair, endpoints uniform."""
-    n = z.size
-    members = [np.flatnonzero(z == k) for k in range(B)]
-    rows, cols = [], []
-    for k in range(B):
-        for l in range(B if directed else k + 1):
-            nk, nl = members[k].size, members[l].size
-            pairs = nk * nl if (directed or k != l) else nk * (nk - 1) / 2
-            m = rng.poisson((c_in if k == l else c_out) / n * pairs)
-            rows.append(rng.choice(members[k], m))
-            cols.append(rng.choice(members[l], m))
-    r, c = np.concatenate(rows), np.concatenate(cols)
-    keep = r != c
-    r, c = r[keep], c[keep]
-    if not directed:
-        r, c = np.minimum(r, c), np.maximum(r, c)
-    A = sp.csr_array((np.ones(r.size), (r, c)), shape=(n, n))
-    A.sum_duplicates()
-    A.data[:] = 1.0
-    return A if directed else sp.csr_array(A + A.T)
 
 
 @pytest.mark.parametrize("variant", VARIANTS)

@@ -14,31 +14,9 @@ from tracker.blockmodel import sbm_dynamic as dyn
 from tracker.blockmodel.sbm import SBMPositions, log_likelihood
 from tracker.blockmodel.sbm_dynamic import DynamicSBM
 from tracker.errors import UsageError
+from tests.helpers.planted import planted_sbm
 
 VARIANTS = [("poisson", False), ("bernoulli", False), ("poisson", True)]
-
-
-def planted_sbm(z, B, c_in, c_out, rng, directed=False):
-    """Sparse planted partition: Poisson number of ties per block pair, endpoints uniform."""
-    n = z.size
-    members = [np.flatnonzero(z == k) for k in range(B)]
-    rows, cols = [], []
-    for k in range(B):
-        for l in range(B if directed else k + 1):
-            nk, nl = members[k].size, members[l].size
-            pairs = nk * nl if (directed or k != l) else nk * (nk - 1) / 2
-            m = rng.poisson((c_in if k == l else c_out) / n * pairs)
-            rows.append(rng.choice(members[k], m))
-            cols.append(rng.choice(members[l], m))
-    r, c = np.concatenate(rows), np.concatenate(cols)
-    keep = r != c
-    r, c = r[keep], c[keep]
-    if not directed:
-        r, c = np.minimum(r, c), np.maximum(r, c)
-    A = sp.csr_array((np.ones(r.size), (r, c)), shape=(n, n))
-    A.sum_duplicates()
-    A.data[:] = 1.0
-    return A if directed else sp.csr_array(A + A.T)
 
 
 def markov_positions(n, T, B, eta, rng):

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+import scipy.sparse as sp
 
 from tracker.snapshot import Relation, build_snapshot
 
@@ -110,7 +111,6 @@ def standin_positions(matrices, directed, n_positions, seed=0):
     by k-means; tieless actors go to an isolates' position.  Deliberately plain: the
     longitudinal tests must not depend on a strong per-period method.
     """
-    import scipy.sparse as sp
     from scipy.cluster.vq import kmeans2
 
     from tracker.blockmodel.partition import Partition
@@ -146,7 +146,6 @@ def standin_positions(matrices, directed, n_positions, seed=0):
 def block_density(matrices, partition) -> np.ndarray:
     """(R, B, B) block densities (values / possible ordered pairs); stand-in for
     ``tracker.blockmodel.blocks.block_stats(...).density`` in these tests."""
-    import scipy.sparse as sp
 
     z = partition.indicator()
     size = partition.sizes().astype(float)
@@ -156,3 +155,26 @@ def block_density(matrices, partition) -> np.ndarray:
         total = np.asarray((z.T @ (sp.csr_array(mat) @ z)).toarray())
         out.append(np.divide(total, possible, out=np.zeros_like(total), where=possible > 0))
     return np.array(out)
+
+
+def planted_sbm(z, B, c_in, c_out, rng, directed=False):
+    """Sparse planted partition: Poisson number of ties per block pair, endpoints uniform."""
+    n = z.size
+    members = [np.flatnonzero(z == k) for k in range(B)]
+    rows, cols = [], []
+    for k in range(B):
+        for l in range(B if directed else k + 1):
+            nk, nl = members[k].size, members[l].size
+            pairs = nk * nl if (directed or k != l) else nk * (nk - 1) / 2
+            m = rng.poisson((c_in if k == l else c_out) / n * pairs)
+            rows.append(rng.choice(members[k], m))
+            cols.append(rng.choice(members[l], m))
+    r, c = np.concatenate(rows), np.concatenate(cols)
+    keep = r != c
+    r, c = r[keep], c[keep]
+    if not directed:
+        r, c = np.minimum(r, c), np.maximum(r, c)
+    A = sp.csr_array((np.ones(r.size), (r, c)), shape=(n, n))
+    A.sum_duplicates()
+    A.data[:] = 1.0
+    return A if directed else sp.csr_array(A + A.T)
