@@ -10,7 +10,8 @@ uninterrupted run (from start-up to just past the end).  After each kill:
 * the next command works (a roster import: it needs the write lock, so a lock
   left behind by the killed process would show).
 
-Done for a large import (200,000 events) and for a fit over six periods.
+Done for a large import (200,000 events), a fit over six periods and an alignment with
+bootstrap confidence.
 """
 
 from __future__ import annotations
@@ -156,4 +157,19 @@ def test_fit_killed_at_random_moments(tmp_path):
         study.import_events(events, source="source", target="target", date="date", relation="kind", weight="w")
         assert len(study.periods()) == 6
     outcome = _crash_many(tmp_path, before_db, ["fit", "--positions", "3"], seed=12)
+    assert outcome["killed_before"] >= 3, outcome
+
+
+@pytest.mark.slow
+def test_align_killed_at_random_moments(tmp_path):
+    from tracker.api import Study
+
+    events = tmp_path / "events.csv"
+    write_events(events, 2000, 100, seed=4)
+    before_db = tmp_path / "before.db"
+    with Study(before_db) as study:
+        study.import_events(events, source="source", target="target", date="date", relation="kind", weight="w")
+        study.fit(positions=3, draws=0)
+    # bootstrap draws make the alignment long enough to be killed while it computes
+    outcome = _crash_many(tmp_path, before_db, ["align", "--draws", "30"], seed=13)
     assert outcome["killed_before"] >= 3, outcome
