@@ -768,6 +768,7 @@ class Study:
 
         info = self.store.current_fit(fit)
         fit_id = info["id"]
+        self._require_alignment(fit_id)
         periods = self._fitted_periods(fit_id)
         tables: dict = {"summary": self.summary()}
         tables["summary"] = tables["summary"][tables["summary"]["period"].isin(periods)]

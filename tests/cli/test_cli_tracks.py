@@ -117,8 +117,9 @@ def test_moves_before_align_is_a_clear_error(tmp_path, new_db):
     db = new_db("s.db")
     _run(db, "import", str(tmp_path / "e.csv"), "--source", "a", "--target", "b", "--date", "d")
     _run(db, "fit", "--positions", "2", "--draws", "0")
-    result = CliRunner().invoke(main, ["--db", str(db), "moves"])
-    assert result.exit_code == 2 and "run roletrail align first" in result.output
+    for args in (["moves"], ["report", "-o", str(tmp_path / "r.html")], ["chart", "flow", "-o", str(tmp_path / "f.svg")]):
+        result = CliRunner().invoke(main, ["--db", str(db), *args])
+        assert result.exit_code == 2 and "run roletrail align first" in result.output, result.output
 
 
 def test_joint_sbm_fit_gives_posterior_confidence(tmp_path, new_db):
