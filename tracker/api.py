@@ -12,6 +12,7 @@ options and prints.
 
 from __future__ import annotations
 
+import json
 import os
 from pathlib import Path
 from typing import Callable, Sequence
@@ -316,7 +317,7 @@ class Study:
         if not before:
             return [], []
         fits = self.store.fits()
-        same = [int(f) for f, p in zip(fits["fit"], fits["params"]) if __import__("json").loads(p) == settings.as_dict()]
+        same = [int(f) for f, p in zip(fits["fit"], fits["params"]) if json.loads(p) == settings.as_dict()]
         if not same:
             labels[:0] = [p for p in before if p not in labels]
             return [], []

@@ -8,6 +8,7 @@ left unchanged (every write is one transaction).
 from __future__ import annotations
 
 import functools
+import json
 import os
 import sys
 
@@ -506,7 +507,7 @@ def _export_frame(study, what: str, fit_id):
     if what in ("moves", "transitions", "tracks", "mobility", "trajectories"):
         return getattr(study, what)(fit_id)
     frame = study.fit_periods(fit_id)
-    frame["diagnostics"] = [__import__("json").dumps(d) for d in frame["diagnostics"]]
+    frame["diagnostics"] = [json.dumps(d) for d in frame["diagnostics"]]
     return frame
 
 
