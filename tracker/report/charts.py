@@ -457,11 +457,7 @@ def trajectory_chart(
     periods = _periods(periods)
     if memberships is None or len(memberships) == 0:
         return _empty_chart("No memberships to draw.")
-    m = _with_period_index(memberships, periods)
-    m["actor"] = m["actor"].astype(str)
-    m["track"] = m["track"].astype(int)
-    m["track_label"] = [track_label(t, track_names) for t in m["track"]]
-    m["certainty"] = _confidence(m)
+    m = _actor_tracks(memberships, periods, track_names)
     m["no_tie"] = _isolate(m).map({True: "yes", False: "no"})
     actors = sorted(m["actor"].unique())
     first = str(actor) if actor is not None and str(actor) in actors else actors[0]
@@ -526,11 +522,7 @@ def timeline_chart(
     periods = _periods(periods)
     if memberships is None or len(memberships) == 0:
         return _empty_chart("No memberships to draw.")
-    m = _with_period_index(memberships, periods)
-    m["actor"] = m["actor"].astype(str)
-    m["track"] = m["track"].astype(int)
-    m["track_label"] = [track_label(t, track_names) for t in m["track"]]
-    m["certainty"] = _confidence(m)
+    m = _actor_tracks(memberships, periods, track_names)
     first = m.sort_values("pidx", kind="stable").groupby("actor", as_index=False).first()
     first["start"] = first["track"].where(first["track"] > 0, 10**6)
     order = first.sort_values(["start", "pidx", "actor"], kind="stable")["actor"].tolist()
@@ -915,6 +907,16 @@ def _periods(periods: Sequence[object] | None) -> list[str]:
     if periods is None:
         return []
     return [str(p) for p in periods]
+
+
+def _actor_tracks(memberships: pd.DataFrame, periods: list[str], track_names) -> pd.DataFrame:
+    """Memberships with period index, text actor, integer track, its display label and certainty."""
+    m = _with_period_index(memberships, periods)
+    m["actor"] = m["actor"].astype(str)
+    m["track"] = m["track"].astype(int)
+    m["track_label"] = [track_label(t, track_names) for t in m["track"]]
+    m["certainty"] = _confidence(m)
+    return m
 
 
 def _with_period_index(frame: pd.DataFrame, periods: list[str]) -> pd.DataFrame:
