@@ -133,7 +133,7 @@ def map_tasks(
     ctx = current()
     if workers is None:
         workers = ctx.workers
-    if ctx.workers == 1 and os.environ.get(_IN_TASK_ENV):
+    if os.environ.get(_IN_TASK_ENV):
         workers = 1
     if progress is None and label is not None and ctx.reporter is not None and total:
         progress = ctx.reporter(label, total)
