@@ -557,5 +557,105 @@ def demo(scenario, out, list_only, draws):
     click.echo(f"report: {paths['report']} (open it in any browser; it works offline)")
 
 
+@main.command("run")
+@click.argument("analysis_file", type=click.Path(dir_okay=False))
+@click.option("--record", is_flag=True,
+              help="Write ANALYSIS_FILE from this study instead of running it: every import with its column "
+                   "mapping, alias, fit with all its settings and seed, alignment and track name, plus a results "
+                   "file beside it that replicate compares with.")
+@click.option("--data", "data_dir", type=click.Path(file_okay=False),
+              help="Folder that holds the data files (default: the folder of ANALYSIS_FILE).")
+@click.option("--report/--no-report", "with_report", default=True, show_default=True,
+              help="Include the report step (with --record: add one; when running: write the report the file asks for).")
+@click.option("--title", help="With --record: a title for the analysis, kept in the file.")
+@click.pass_context
+def run_cmd(ctx, analysis_file, record, data_dir, with_report, title):
+    """Replay a whole analysis from ANALYSIS_FILE (TOML) into a new study, or write one with --record."""
+    from pathlib import Path
+
+    from tracker import replication
+
+    if record:
+        stem = Path(analysis_file).with_suffix("").name
+        result = replication.record(_study(ctx), analysis_file, report=f"{stem}-report.html" if with_report else None,
+                                    title=title, say=click.echo)
+        steps = ", ".join(f"{n} {what}" for what, n in result["steps"].items() if n)
+        click.echo(f"wrote {result['analysis']} ({steps}) and the results {result['results']}")
+        click.echo(f"check it with: roletrail replicate {result['analysis']}")
+        return
+    result = replication.run(analysis_file, ctx.obj["db"], data_dir=data_dir, skip_report=not with_report,
+                             say=click.echo)
+    click.echo(f"replayed {analysis_file} into {result['study']}")
+
+
+@main.command()
+@click.argument("analysis_file", type=click.Path(dir_okay=False))
+@click.option("--into", metavar="PATH|URL",
+              help="Replay into this new study and keep it (default: a temporary study, removed afterwards).")
+@click.option("--against", metavar="PATH|URL",
+              help="Compare with the results stored in this study instead of the results file that goes with "
+                   "ANALYSIS_FILE (fits are matched by their settings).")
+@click.option("--tolerance", type=float, default=0.0, show_default=True,
+              help="Largest difference allowed between decimal results such as densities and confidences "
+                   "(0 = exactly equal). Labels, counts, positions and tracks must always be equal.")
+@click.option("--data", "data_dir", type=click.Path(file_okay=False),
+              help="Folder that holds the data files (default: the folder of ANALYSIS_FILE).")
+@click.option("--limit", default=10, show_default=True, type=click.IntRange(min=1),
+              help="Differences listed per table before the rest are counted.")
+@click.option("--report/--no-report", "with_report", default=True, show_default=True,
+              help="Also build the report the file asks for (in the temporary study's folder).")
+def replicate(analysis_file, into, against, tolerance, data_dir, limit, with_report):
+    """Re-run ANALYSIS_FILE from its data and confirm every stored result is identical.
+
+    Exit status 0 = identical, 1 = results differ (each difference listed), 2 = the data
+    changed or the file cannot be replayed.
+    """
+    from tracker import replication
+
+    result = replication.replicate(analysis_file, into=into, against=against, tolerance=tolerance,
+                                   data_dir=data_dir, limit=limit, skip_report=not with_report, say=click.echo)
+
+    def line(found: dict) -> str:
+        return ", ".join(f"{k} {found.get(k, '?')}" for k in ("roletrail", "python", "numpy", "scipy", "pandas",
+                                                               "scikit-learn"))
+
+    click.echo(f"recorded with: {line(result.recorded_versions)}" if result.recorded_versions else
+               "recorded with: (versions not stored)")
+    click.echo(f"replayed with: {line(result.versions)}")
+    for seeds in result.analysis.seeds():
+        click.echo(f"seeds: {seeds}")
+    click.echo(f"data: {len(result.analysis.imports)} files, each with the recorded SHA-256")
+    rows = sum(result.compared.values())
+    tol = "exact equality of every value" if result.tolerance == 0 else \
+        f"decimals within {result.tolerance:g}, labels and counts exact"
+    click.echo(f"compared {rows} stored rows in {len(result.compared)} tables with {result.reference} ({tol})")
+    if result.identical:
+        click.echo("identical: every stored result of the replay equals the recorded one")
+        return
+    click.echo(f"NOT identical: {len(result.differences)} difference(s)")
+    for diff in result.differences:
+        click.echo(f"  {diff}")
+    sys.exit(1)
+
+
+@main.command()
+@click.argument("term", nargs=-1)
+def explain(term):
+    """Explain a term in plain words, with its formula and published source; alone, list the terms."""
+    import shutil
+
+    from tracker import glossary
+
+    if not term:
+        entries = [glossary.GLOSSARY[t] for t in glossary.terms()]
+        width = max(len(e.term) for e in entries)
+        for entry in entries:
+            click.echo(f"{entry.term:<{width}}  {entry.summary}")
+        click.echo("\nroletrail explain TERM says more (formula and published source).")
+        return
+    entry = glossary.lookup(" ".join(term))
+    click.echo(glossary.as_text(entry, min(shutil.get_terminal_size((80, 24)).columns, 100)))
+
+
 if __name__ == "__main__":  # pragma: no cover
     main()

@@ -20,7 +20,7 @@ from dataclasses import dataclass
 
 from tracker.errors import UsageError
 
-__all__ = ["Entry", "GLOSSARY", "terms", "lookup", "suggest", "normalise"]
+__all__ = ["Entry", "GLOSSARY", "terms", "lookup", "suggest", "normalise", "as_text"]
 
 
 @dataclass(frozen=True)
@@ -58,7 +58,8 @@ _WF = "Wasserman, S. & Faust, K. (1994). Social Network Analysis. Cambridge Univ
 _DBF = "Doreian, P., Batagelj, V. & Ferligoj, A. (2005). Generalized Blockmodeling. Cambridge University Press"
 _BE = "Borgatti, S. P. & Everett, M. G. (1999). Models of core/periphery structures. Social Networks 21, 375-395"
 _CKT = "Chakrabarti, D., Kumar, R. & Tomkins, A. (2006). Evolutionary clustering. Proceedings of KDD 2006"
-_BH = ("Benjamini, Y. & Hochberg, Y. (1995). Controlling the false discovery rate. "
+_BH = ("Benjamini, Y. & Hochberg, Y. (1995). Controlling the false discovery rate: a practical and powerful "
+       "approach to multiple testing. "
        "Journal of the Royal Statistical Society B 57, 289-300")
 _PS = ("Phipson, B. & Smyth, G. K. (2010). Permutation p-values should never be zero. "
        "Statistical Applications in Genetics and Molecular Biology 9(1)")
@@ -343,15 +344,24 @@ def terms() -> list[str]:
 
 
 def suggest(text: str, n: int = 3) -> list[str]:
-    """The terms closest to ``text`` (by spelling, over terms and their other names), best first."""
+    """The terms closest to ``text`` in spelling, best first.
+
+    Each term and each of its other names is scored by difflib's similarity
+    ratio with ``text``, and a one-word ``text`` also against each word of a
+    name (so "densty" finds "density correlation" as well as "block").
+    """
     key = normalise(text)
-    close = difflib.get_close_matches(key, list(_INDEX), n=n * 3, cutoff=0.5)
-    out = []
-    for name in close + [name for name in _INDEX if key and (key in name or name in key.split())]:
-        term = _INDEX[name]
-        if term not in out:
-            out.append(term)
-    return out[:n]
+    if not key:
+        return []
+    one_word = len(key.split()) == 1
+    best: dict[str, float] = {}
+    for name, term in _INDEX.items():
+        score = difflib.SequenceMatcher(None, key, name).ratio()
+        if one_word:
+            score = max([score] + [0.95 * difflib.SequenceMatcher(None, key, w).ratio() for w in name.split()])
+        best[term] = max(best.get(term, 0.0), score)
+    ranked = sorted((t for t, v in best.items() if v >= 0.6), key=lambda t: -best[t])
+    return ranked[:n]
 
 
 def lookup(text: str) -> Entry:
@@ -362,3 +372,24 @@ def lookup(text: str) -> Entry:
     close = suggest(text)
     hint = f"closest: {', '.join(close)}; " if close else ""
     raise UsageError(f"no entry for {text!r}; {hint}roletrail explain (without a term) lists them all")
+
+
+def as_text(entry: Entry, width: int = 80) -> str:
+    """An entry as plain text for a terminal, wrapped to ``width`` columns."""
+    import textwrap
+
+    width = max(40, int(width))
+
+    def block(label: str, text: str) -> list[str]:
+        return textwrap.wrap(text, width=width, initial_indent=label, subsequent_indent=" " * len(label))
+
+    lines = [entry.term, ""]
+    lines += textwrap.wrap(entry.plain, width=width)
+    if entry.formula:
+        lines += [""] + block("Formula: ", entry.formula)
+    lines.append("")
+    for i, source in enumerate(entry.sources):
+        lines += block("Source:  " if i == 0 else "         ", source)
+    if entry.see:
+        lines += [""] + block("See also: ", ", ".join(entry.see))
+    return "\n".join(lines)

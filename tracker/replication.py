@@ -69,7 +69,7 @@ else:  # pragma: no cover - Python 3.10
 
 __all__ = [
     "FORMAT", "Analysis", "Difference", "Replication", "read_analysis", "write_analysis", "record", "replay",
-    "replicate", "results_of", "compare_results", "versions", "RESULT_TABLES",
+    "replicate", "run", "check_data", "read_results", "results_of", "compare_results", "versions", "RESULT_TABLES",
 ]
 
 FORMAT = 1
@@ -351,13 +351,15 @@ def check_data(analysis: Analysis, data_dir: str | Path | None = None, *, requir
 
 
 def replay(analysis: Analysis, study, *, data_dir: str | Path | None = None, report_dir: str | Path | None = None,
-           skip_report: bool = False, say: Say = _quiet) -> dict[int, int]:
+           skip_report: bool = False, files: list[Path] | None = None, say: Say = _quiet) -> dict[int, int]:
     """Run the analysis file's steps into ``study``, which must hold no data yet.
 
     Returns the fit ids: analysis-file id -> the study's id.  Report files are
     written relative to ``report_dir`` (default: the analysis file's folder).
+    ``files`` are the data files already found by :func:`check_data` (checked
+    here otherwise).
     """
-    files = check_data(analysis, data_dir)
+    files = check_data(analysis, data_dir) if files is None else files
     counts = study.store.counts()
     if counts["batches"] or len(study.fits()):
         raise UsageError(f"the study already holds {counts['batches']} imports and {len(study.fits())} fits; "
@@ -394,6 +396,33 @@ def replay(analysis: Analysis, study, *, data_dir: str | Path | None = None, rep
                     fit=fit_map[analysis.report["fit"]])
         say(f"report: {out}")
     return fit_map
+
+
+def run(path: str | Path, db: str | None, *, data_dir: str | Path | None = None, skip_report: bool = False,
+        say: Say = _quiet) -> dict:
+    """Read an analysis file and replay it into the study ``db`` (new or empty).
+
+    When ``db`` is a SQLite file that did not exist before and a step fails,
+    the half-built file is removed, so a failed run leaves nothing behind.
+    Returns ``{"analysis", "fits" (file id -> study id), "study"}``.
+    """
+    from tracker.api import Study
+    from tracker.store.database import resolve_url, sqlite_path
+
+    analysis = read_analysis(path)
+    files = check_data(analysis, data_dir)
+    file = sqlite_path(resolve_url(db))
+    new_file = file is not None and not file.exists()
+    try:
+        with Study(db) as study:
+            fits = replay(analysis, study, data_dir=data_dir, skip_report=skip_report, files=files, say=say)
+            where = str(study.path or study.engine.url.render_as_string(hide_password=True))
+    except BaseException:
+        if new_file:
+            for suffix in ("", "-wal", "-shm", "-journal"):
+                Path(str(file) + suffix).unlink(missing_ok=True)
+        raise
+    return {"analysis": analysis, "fits": fits, "study": where}
 
 
 def _call(method, options: dict, file: str, where: str, *args, **fixed):
@@ -719,14 +748,14 @@ def replicate(path: str | Path, *, into: str | None = None, against: str | None 
     if tolerance < 0:
         raise UsageError("--tolerance must be 0 or more")
     analysis = read_analysis(path)
-    check_data(analysis, data_dir, require_hash=True)
+    files = check_data(analysis, data_dir, require_hash=True)
     expected = None if against is not None else read_results(analysis.results_path)
     with tempfile.TemporaryDirectory(prefix="roletrail-replicate-") as tmp:
         location = into if into is not None else str(Path(tmp) / "replica.db")
         report_dir = Path(tmp) if into is None else (Path(into).parent if "://" not in str(into) else Path(tmp))
         with Study(location) as replica:
             fit_map = replay(analysis, replica, data_dir=data_dir, report_dir=report_dir, skip_report=skip_report,
-                             say=say)
+                             files=files, say=say)
             actual = results_of(replica, fit_map)
             if against is not None:
                 with Study(against, create=False) as reference:
