@@ -214,8 +214,6 @@ def read_analysis(path: str | Path) -> Analysis:
 
 def write_analysis(analysis: Analysis, path: str | Path | None = None) -> Path:
     """Write an analysis file (TOML, with a header saying how to use it); returns its path."""
-    import tomli_w
-
     from tracker import __version__
 
     path = Path(path or analysis.path)
@@ -225,21 +223,27 @@ def write_analysis(analysis: Analysis, path: str | Path | None = None) -> Path:
     doc["import"] = [_drop_none({"kind": i["kind"], "file": i["file"], "sha256": i["sha256"], **i["options"]})
                      for i in analysis.imports]
     doc["alias"] = [dict(a) for a in analysis.aliases]
-    doc["fit"] = [_drop_none({"id": f["id"], **f["settings"], "periods": f["periods"]}) for f in analysis.fits]
+    doc["fit"] = [_drop_none({"id": f["id"], **_ordered(f["settings"], _FIRST_SETTINGS), "periods": f["periods"]})
+                  for f in analysis.fits]
     doc["align"] = [_drop_none({"fit": a["fit"], **a["settings"]}) for a in analysis.aligns]
     doc["track_name"] = [dict(t) for t in analysis.track_names]
     if analysis.report:
         doc["report"] = _drop_none({"file": analysis.report["file"], "fit": analysis.report["fit"],
                                     **analysis.report["options"]})
-    doc = {k: v for k, v in doc.items() if v}
     today = datetime.now(timezone.utc).strftime("%Y-%m-%d")
     header = (
         f"# roletrail analysis file (format {FORMAT}), written by roletrail {__version__} on {today}.\n"
         "# Replay it into a new study:          roletrail --db NEW.db run THIS-FILE\n"
         "# Check every result against the record: roletrail replicate THIS-FILE\n"
-        "# Data files are looked up next to this file (or in --data DIR) and must have the SHA-256 listed.\n\n"
+        "# Data files are looked up next to this file (or in --data DIR) and must have the SHA-256 listed.\n"
     )
-    path.write_text(header + tomli_w.dumps(doc), encoding="utf-8")
+    parts = [header]
+    for section in _SECTIONS:  # in replay order, each entry as its own table
+        value = doc.get(section)
+        if value:
+            for entry in value if isinstance(value, list) else [value]:
+                parts.append(_toml_table(section, entry, array=isinstance(value, list)))
+    path.write_text("\n".join(parts), encoding="utf-8")
     return path
 
 
@@ -814,6 +818,37 @@ def _required(entry: dict, key: str, kind: type, file: str, where: str):
 def _no_more(entry: dict, file: str, where: str) -> None:
     if entry:
         raise InputError(f"{where} has an unknown key {next(iter(entry))!r}", file=file)
+
+
+def _toml_table(name: str, table: dict, *, array: bool = False) -> str:
+    """One table as TOML: a ``[name]`` (or ``[[name]]``) header, its values, then its sub-tables.
+
+    Written section by section (tomli-w renders the values) so that every
+    entry has its own header; tomli-w alone would inline short tables, and an
+    inline array after a table header would belong to that table.
+    """
+    import re
+
+    import tomli_w
+
+    values = {k: v for k, v in table.items() if not isinstance(v, dict)}
+    text = (f"[[{name}]]\n" if array else f"[{name}]\n") + tomli_w.dumps(values)
+    for key, sub in table.items():
+        if isinstance(sub, dict):
+            bare = key if re.fullmatch(r"[A-Za-z0-9_-]+", key) else json.dumps(key)
+            text += "\n" + _toml_table(f"{name}.{bare}", sub)
+    return text
+
+
+_FIRST_SETTINGS = ("method", "positions", "criterion", "seed", "smoothing")
+
+
+def _ordered(mapping: dict, first: tuple[str, ...]) -> dict:
+    """The keys in ``first`` first (in that order), then the others alphabetically; nested tables last."""
+    head = [k for k in first if k in mapping]
+    rest = sorted(k for k in mapping if k not in head)
+    return {k: mapping[k] for k in head + [k for k in rest if not isinstance(mapping[k], dict)]
+            + [k for k in rest if isinstance(mapping[k], dict)]}
 
 
 def _drop_none(mapping: dict) -> dict:
