@@ -717,6 +717,9 @@ def replicate(analysis_file, into, against, tolerance, data_dir, limit, with_rep
     click.echo(f"recorded with: {line(result.recorded_versions)}" if result.recorded_versions else
                "recorded with: (versions not stored)")
     click.echo(f"replayed with: {line(result.versions)}")
+    if result.version_changes():
+        click.echo(f"note: versions changed ({'; '.join(result.version_changes())}); decimals may then differ in "
+                   "their last digits (see --tolerance)")
     for seeds in result.analysis.seeds():
         click.echo(f"seeds: {seeds}")
     click.echo(f"data: {len(result.analysis.imports)} files, each with the recorded SHA-256")

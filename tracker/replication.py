@@ -152,6 +152,10 @@ def read_analysis(path: str | Path) -> Analysis:
         raise InputError(f"has an unknown section [{unknown[0]}]", file=name,
                          fix=f"the sections are {', '.join(_SECTIONS)}")
     head = _table(raw.get("analysis", {}), name, "[analysis]")
+    extra = [k for k in head if k not in ("format", "title", "written_by", "current_fit", "results")]
+    if extra:
+        raise InputError(f"[analysis] has an unknown key {extra[0]!r}", file=name,
+                         fix="its keys are format, title, written_by, current_fit and results")
     fmt = head.get("format", FORMAT)
     if not isinstance(fmt, int) or fmt > FORMAT:
         raise InputError(f"is an analysis file of format {fmt!r}, newer than this roletrail reads ({FORMAT})",
@@ -415,6 +419,10 @@ def run(path: str | Path, db: str | None, *, data_dir: str | Path | None = None,
 
     analysis = read_analysis(path)
     files = check_data(analysis, data_dir)
+    for i, entry in enumerate(analysis.imports, 1):
+        if entry["sha256"] is None:
+            say(f"note: import {i} ({entry['file']}) has no sha256, so replicate cannot confirm its data; "
+                "roletrail run --record writes a file with every hash")
     file = sqlite_path(resolve_url(db))
     new_file = file is not None and not file.exists()
     try:
@@ -726,6 +734,11 @@ class Replication:
     @property
     def identical(self) -> bool:
         return not self.differences
+
+    def version_changes(self) -> list[str]:
+        """Libraries whose version differs between the record and this run ("numpy 1.26.4 -> 2.1.0")."""
+        return [f"{k} {self.recorded_versions[k]} -> {v}" for k, v in self.versions.items()
+                if k in self.recorded_versions and self.recorded_versions[k] != v]
 
 
 def replicate(path: str | Path, *, into: str | None = None, against: str | None = None, tolerance: float = 0.0,

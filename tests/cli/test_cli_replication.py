@@ -16,10 +16,12 @@ import sys
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 import scipy
 from click.testing import CliRunner
 
+from tests.cli.test_cli_tracks import moving_events
 from tracker.api import Study
 from tracker.cli import main
 from tracker.demo import load_scenario
@@ -189,6 +191,7 @@ def test_replicate_lists_a_tampered_result(recorded, tmp_path):
     moves = results["fits"]["1"]["tables"]["moves"]
     assert moves["rows"], "the scenario has moves to tamper with"
     moves["rows"][0][moves["columns"].index("confidence")] = 0.123
+    results["versions"]["numpy"] = "0.0.1"
     path.write_text(json.dumps(results), encoding="utf-8")
     result = _invoke("replicate", folder / "deposit.toml", "--no-report")
     assert result.exit_code == 1, result.output
@@ -196,6 +199,33 @@ def test_replicate_lists_a_tampered_result(recorded, tmp_path):
     assert f"fit 1 memberships: period '{row[cols.index('period')]}', actor '{row[cols.index('actor')]}': " \
            f"position {row[cols.index('position')]} recorded, {row[cols.index('position')] - 1} replayed" in result.output
     assert "fit 1 moves:" in result.output and "confidence 0.123 recorded" in result.output
+    assert f"note: versions changed (numpy 0.0.1 -> {np.__version__})" in result.output
+
+
+def test_an_interactive_study_is_recorded_and_replicated(tmp_path):
+    """Imports, a re-cut, an alias merge, a fit, an alignment and a name, made one command at a time."""
+    moving_events(tmp_path / "events.csv")
+    events = pd.read_csv(tmp_path / "events.csv")
+    events.loc[events.index[::7], "a"] = events.loc[events.index[::7], "a"].str.replace("agency 0", "Agency #")
+    events.to_csv(tmp_path / "events.csv", index=False)
+    db = tmp_path / "work.db"
+    _ok("--db", db, "import", tmp_path / "events.csv", "--source", "a", "--target", "b", "--date", "d")
+    _ok("--db", db, "recut", "--period", "2y")
+    _ok("--db", db, "alias", "Agency #3", "agency 03")
+    _ok("--db", db, "fit", "--positions", "2", "--draws", "0", "--seed", "4")
+    _ok("--db", db, "align", "--draws", "3")
+    _ok("--db", db, "name-track", "1", "core")
+    _ok("--db", db, "run", "--record", tmp_path / "work.toml", "--no-report")
+    doc = tomllib.loads((tmp_path / "work.toml").read_text(encoding="utf-8"))
+    assert doc["import"][0]["period"] == "2y"  # the re-cut is part of the import
+    assert {"name": "Agency #3", "actor": "agency 03"} in doc["alias"]
+    assert doc["fit"][0]["seed"] == 4 and doc["align"][0]["seed"] == 4  # the alignment took the fit's seed
+    out = _ok("replicate", tmp_path / "work.toml", "--into", tmp_path / "again.db")
+    assert "identical" in out
+    with Study(tmp_path / "again.db") as again, Study(db) as work:
+        assert again.periods() == work.periods() == ["2016-2017", "2018-2019"]
+        assert again.actors()["actor"].tolist() == work.actors()["actor"].tolist()
+        assert again.tracks()["name"].tolist() == work.tracks()["name"].tolist()
 
 
 def test_replicate_against_a_tampered_study(recorded, tmp_path):
