@@ -290,3 +290,14 @@ def test_a_bad_analysis_file_names_the_problem(tmp_path):
     path.write_text("[[fit]\n", encoding="utf-8")
     result = _invoke("replicate", path)
     assert result.exit_code == 2 and "is not valid TOML" in result.stderr
+
+
+def test_run_into_any_backend_then_replicate_against_it(recorded, tmp_path, new_db):
+    """The replay stored on SQLite or PostgreSQL (when ROLETRAIL_TEST_PG is set) equals a fresh replay."""
+    folder = _copy(recorded, tmp_path)
+    target = new_db("replayed.db")
+    _ok("--db", target, "run", folder / "deposit.toml")
+    with Study(target) as study:
+        assert study.tracks().loc[lambda t: t["track"] == 1, "name"].tolist() == ["coordinating core"]
+    out = _ok("replicate", folder / "deposit.toml", "--against", target, "--no-report")
+    assert "identical" in out
