@@ -109,7 +109,8 @@ _ENTRIES = (
         "b_kl ∈ {0, 1}. zero-block: b_kl = 1 when t_kl > 0; one-block: b_kl = 1 when t_kl = p_kl; "
         "density: b_kl = 1 when d_kl ≥ α (α = the whole network's density unless --alpha); "
         "max-value: b_kl = 1 when the block's largest value ≥ the cut; mean-value: b_kl = 1 when the block's "
-        "mean value ≥ the mean of all values.",
+        "mean value per possible tie ≥ the mean of all values between distinct actors. A block with no tie is 0 "
+        "under every criterion.",
         (f"{_WF}, sec. 10.2 (image matrices and their criteria)", _WBB),
         also=("image matrix", "images", "criterion", "blockmodel"),
         see=("block", "zero-block", "ideal structure"),
