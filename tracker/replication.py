@@ -767,6 +767,12 @@ def replicate(path: str | Path, *, into: str | None = None, against: str | None 
     analysis = read_analysis(path)
     files = check_data(analysis, data_dir, require_hash=True)
     expected = None if against is not None else read_results(analysis.results_path)
+    if into is None:
+        said = say
+
+        def say(text: str) -> None:  # the temporary folder goes away: do not point at it
+            said("report: built in the temporary folder (removed afterwards)" if text.startswith("report: ") else text)
+
     with tempfile.TemporaryDirectory(prefix="roletrail-replicate-") as tmp:
         location = into if into is not None else str(Path(tmp) / "replica.db")
         report_dir = Path(tmp) if into is None else (Path(into).parent if "://" not in str(into) else Path(tmp))
