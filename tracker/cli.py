@@ -77,9 +77,9 @@ def listing(func):
     """The shared ``--format`` and ``-o`` options of every listing command."""
 
     @click.option("--format", "fmt", type=click.Choice(FORMATS), default="table", show_default=True,
-                  help="table for reading; csv or json for other programs.")
+                  help="How to print: table to read on screen; csv or json for spreadsheets and other programs.")
     @click.option("-o", "--output", type=click.Path(dir_okay=False, writable=True), default=None,
-                  help="Write to this file instead of standard output.")
+                  help="Write to this file instead of the screen (standard output).")
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
         return func(*args, **kwargs)
@@ -111,7 +111,8 @@ def _progress_bar(label: str):
 
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
 @click.option("--db", envvar="ROLETRAIL_DB", default=None, metavar="PATH|URL",
-              help="Study database: a SQLite file or any SQLAlchemy URL [env ROLETRAIL_DB; default roletrail.db].")
+              help="Where the study is kept: a file (SQLite) or a database address (SQLAlchemy URL, e.g. "
+                   "postgresql+psycopg://...). Also read from ROLETRAIL_DB; default roletrail.db in this folder.")
 @click.version_option(__version__, prog_name="roletrail")
 @click.pass_context
 def main(ctx: click.Context, db: str | None) -> None:
@@ -122,23 +123,36 @@ def main(ctx: click.Context, db: str | None) -> None:
 
 @main.command("import")
 @click.argument("file", type=click.Path(dir_okay=False))
-@click.option("--source", required=True, help="Column of the actor the event comes from.")
-@click.option("--target", required=True, help="Column of the actor the event goes to.")
-@click.option("--date", "date_col", help="Column of event dates (ISO dates or bare years).")
-@click.option("--period", default="year", show_default=True, help="How to cut dates: year, quarter, month or Ny (N-year windows).")
-@click.option("--period-origin", default=0, type=int, help="First year of some N-year window (default: windows start at multiples of N).")
-@click.option("--period-column", help="Column holding the period label, instead of --date.")
-@click.option("--relation", "relation_col", help="Column holding the relation (kind of tie).")
-@click.option("--relation-name", help="One relation name for every row (default 'tie').")
-@click.option("--weight", help="Column of event weights (default: each event counts 1).")
-@click.option("--undirected", is_flag=True, help="The relation has no direction (A with B = B with A).")
-@click.option("--date-format", help="strftime format of the dates, e.g. %d/%m/%Y.")
-@click.option("--delimiter", help="CSV delimiter (detected when omitted); 'tab' for tabs.")
-@click.option("--replace", is_flag=True, help="Replace the earlier import of this content (or of this file name).")
+@click.option("--source", required=True, help="Column naming the actor the event comes from (the sender).")
+@click.option("--target", required=True, help="Column naming the actor the event goes to (the receiver).")
+@click.option("--date", "date_col",
+              help="Column with the date of each event (ISO dates such as 2019-03-31, or bare years).")
+@click.option("--period", default="year", show_default=True,
+              help="How to group dates into periods: year, quarter, month, or N-year windows such as 2y.")
+@click.option("--period-origin", default=0, type=int,
+              help="With N-year windows: the first year of any one window, e.g. 2001 for 2001-2002, 2003-2004 ... "
+                   "(default: windows start at multiples of N).")
+@click.option("--period-column",
+              help="Column that already names each row's period (e.g. a survey wave), instead of --date.")
+@click.option("--relation", "relation_col",
+              help="Column naming the kind of tie of each row, e.g. aid or dispute (the relation).")
+@click.option("--relation-name",
+              help="One kind of tie (relation) for every row, when the file has no such column (default 'tie').")
+@click.option("--weight", help="Column with how much each event counts (its weight; default: every event counts 1).")
+@click.option("--undirected", is_flag=True,
+              help="Ties have no direction: A with B is the same as B with A (an undirected relation).")
+@click.option("--date-format",
+              help="How the dates are written when they are not ISO dates: a pattern such as %d/%m/%Y for 31/03/2019 "
+                   "(strftime format).")
+@click.option("--delimiter",
+              help="Character that separates the columns of a CSV file (the delimiter; detected when left out); 'tab' "
+                   "for tabs.")
+@click.option("--replace", is_flag=True,
+              help="Replace an earlier import of the same content (or of the same file name) instead of refusing it.")
 @click.pass_context
 def import_cmd(ctx, file, source, target, date_col, period, period_origin, period_column, relation_col,
                relation_name, weight, undirected, date_format, delimiter, replace):
-    """Import dated dyadic events from a CSV or Parquet FILE."""
+    """Import events from a CSV or Parquet FILE: one row per dated interaction between two actors (dyadic events)."""
     study = _study(ctx, create=True)
     progress, update = _progress_bar(f"importing {os.path.basename(file)}")
     with progress:
@@ -157,14 +171,20 @@ def import_cmd(ctx, file, source, target, date_col, period, period_origin, perio
 
 @main.command("import-actors")
 @click.argument("file", type=click.Path(dir_okay=False))
-@click.option("--actor", default="actor", show_default=True, help="Column of actor labels.")
-@click.option("--first", help="Column of the first period (year or date) the actor is present.")
-@click.option("--last", help="Column of the last period the actor is present.")
-@click.option("--delimiter", help="CSV delimiter (detected when omitted).")
-@click.option("--replace", is_flag=True, help="Replace the earlier import of this roster.")
+@click.option("--actor", default="actor", show_default=True, help="Column with the actors' names.")
+@click.option("--first",
+              help="Column with the first period (year or date) in which the actor exists; before it the actor is "
+                   "absent, not isolated.")
+@click.option("--last", help="Column with the last period (year or date) in which the actor exists.")
+@click.option("--delimiter",
+              help="Character that separates the columns of a CSV file (the delimiter; detected when left out).")
+@click.option("--replace", is_flag=True, help="Replace the earlier import of this list of actors.")
 @click.pass_context
 def import_actors_cmd(ctx, file, actor, first, last, delimiter, replace):
-    """Import a roster FILE: who exists when, with attributes (other columns)."""
+    """Import a list of actors (a roster) from FILE: who exists in which periods.
+
+    Other columns are kept as the actors' attributes.
+    """
     study = _study(ctx, create=True)
     report = study.import_actors(file, actor=actor, first=first, last=last, delimiter=delimiter, replace=replace)
     click.echo(f"imported roster {report['file']} as batch {report['batch']}: {report['rows_loaded']} actors, {report['new_actors']} new")
@@ -174,7 +194,11 @@ def import_actors_cmd(ctx, file, actor, first, last, delimiter, replace):
 @listing
 @click.pass_context
 def summary(ctx, fmt, output):
-    """One row per period and relation: actors, ties, density, reciprocity, isolates."""
+    """Per period and kind of tie: actors, ties, density, reciprocity, isolates.
+
+    Density is the share of possible ties present, reciprocity the share of ties returned, isolates the
+    actors without ties.
+    """
     from tracker.measures import SPARSE_DENSITY
 
     frame = _study(ctx).summary()
@@ -191,7 +215,7 @@ def summary(ctx, fmt, output):
 @listing
 @click.pass_context
 def actors(ctx, fmt, output):
-    """List actors with their roster range, attributes and other names."""
+    """List actors with the periods they exist in (from the roster), their attributes and other names (aliases)."""
     _emit(_study(ctx).actors(), fmt, output, title="Actors")
 
 
@@ -199,16 +223,20 @@ def actors(ctx, fmt, output):
 @listing
 @click.pass_context
 def batches(ctx, fmt, output):
-    """List imported files."""
+    """List imported files (batches): rows read and loaded, when, and each file's content hash (SHA-256)."""
     _emit(_study(ctx).batches(), fmt, output, title="Imports")
 
 
 @main.command()
-@click.option("--repair", is_flag=True, help="First rebuild every tie from the raw events.")
-@click.option("--all-fits", is_flag=True, help="Check every stored fit period (default: the latest 50).")
+@click.option("--repair", is_flag=True,
+              help="First rebuild every tie from the raw events (safe: ties are always derived from the events).")
+@click.option("--all-fits", is_flag=True, help="Check every stored fitted period (default: the latest 50).")
 @click.pass_context
 def check(ctx, repair, all_fits):
-    """Verify the study; print each problem with its fix. Exit status 0 = no problem, 1 = problems."""
+    """Check the study for damage or contradictions; print each problem with its fix.
+
+    Exit status 0 = no problem, 1 = problems.
+    """
     problems = _study(ctx).check(repair=repair, all_fits=all_fits)
     if repair:
         click.echo("rebuilt every tie from the raw events")
@@ -226,7 +254,7 @@ def check(ctx, repair, all_fits):
 @click.argument("actor")
 @click.pass_context
 def alias(ctx, other_name, actor):
-    """Record OTHER_NAME as another name of ACTOR (merging them if both have events)."""
+    """Record OTHER_NAME as another spelling of ACTOR (merging the two if both have events)."""
     result = _study(ctx).alias(other_name, actor)
     if result["merged"]:
         click.echo(f"merged {other_name!r} into {actor!r}: {result['events_moved']} events moved, ties rebuilt")
@@ -235,11 +263,13 @@ def alias(ctx, other_name, actor):
 
 
 @main.command()
-@click.option("--period", required=True, help="New cut: year, quarter, month or Ny.")
-@click.option("--period-origin", default=0, type=int, help="First year of some N-year window.")
+@click.option("--period", required=True,
+              help="New way to group dates into periods: year, quarter, month, or N-year windows such as 2y.")
+@click.option("--period-origin", default=0, type=int,
+              help="With N-year windows: the first year of any one window (default: windows start at multiples of N).")
 @click.pass_context
 def recut(ctx, period, period_origin):
-    """Re-cut every dated event into new periods (no re-import needed)."""
+    """Group every dated event into new periods (re-cut; no re-import needed)."""
     result = _study(ctx).recut(period, origin=period_origin)
     click.echo(f"re-cut {result['events']} events into {result['periods']} periods by {result['scheme']}")
 
@@ -256,31 +286,62 @@ def _split(values) -> list[str] | None:
 
 @main.command()
 @click.option("--method", default="structural", show_default=True,
-              help="structural, concor, regular, optimize or sbm.")
-@click.option("--positions", default="4", show_default=True, help="Positions of the tied actors per period, or 'auto'.")
+              help="How to find positions: structural (same ties to the same others), concor (repeated correlations), "
+                   "regular (ties to the same kinds of others), optimize (fewest inconsistencies) or sbm (a statistical "
+                   "model: stochastic blockmodel).")
+@click.option("--positions", default="4", show_default=True,
+              help="How many positions to find among the actors with ties in each period, or 'auto' to choose from the "
+                   "data (actors without ties get a position of their own).")
 @click.option("--criterion", default="zero-block", show_default=True,
               type=click.Choice(["zero-block", "one-block", "density", "max-value", "mean-value"]),
-              help="How blocks become image cells.")
-@click.option("--alpha", type=float, help="Density threshold of the density criterion (default: whole-network density).")
-@click.option("--cut", type=float, help="Value threshold of the max-value criterion (default: median tie value).")
-@click.option("--seed", default=0, show_default=True, type=int, help="Seed of every random step.")
+              help="When a block (the ties from one position to another) counts as tied in the image: zero-block (any "
+                   "tie; "
+                   "suits sparse data), one-block (every possible tie), density (a share of at least --alpha), "
+                   "max-value (a value reaching --cut), mean-value (a mean at least the overall mean).")
+@click.option("--alpha", type=float,
+              help="With --criterion density: the share of possible ties a block needs to count as tied (default: the "
+                   "whole network's density).")
+@click.option("--cut", type=float,
+              help="With --criterion max-value: the value a block's largest tie must reach to count as tied (default: "
+                   "the median tie value).")
+@click.option("--seed", default=0, show_default=True, type=int,
+              help="Starting number of every random step (the seed); the same seed gives the same result.")
 @_periods_option
-@click.option("--relation", "relations", multiple=True, help="Fit only these relations (jointly); default all.")
-@click.option("--draws", default=99, show_default=True, type=int, help="Permutation-test draws per period (0 = no test).")
-@click.option("--k-range", default="2-8", show_default=True, help="Range of positions tried by --positions auto.")
-@click.option("--linkage", help="structural/regular: hierarchical-clustering linkage (average, complete, ward, single).")
-@click.option("--measure", type=click.Choice(["euclidean", "correlation"]), help="structural: distance measure.")
-@click.option("--restarts", type=int, help="optimize/sbm: random starts.")
-@click.option("--exact", is_flag=True, help="regular: the exact maximal regular partition (binary data).")
-@click.option("--degree-corrected", is_flag=True, help="sbm: degree-corrected model.")
-@click.option("--model", "sbm_model", type=click.Choice(["poisson", "bernoulli"]), help="sbm: Poisson for event counts (default) or Bernoulli for binary ties.")
-@click.option("--joint", is_flag=True, help="sbm: one dynamic model over all periods (positions mean the same in every period).")
+@click.option("--relation", "relations", multiple=True,
+              help="Fit only these kinds of tie (relations), together; default all.")
+@click.option("--draws", default=99, show_default=True, type=int,
+              help="Random reshufflings used to test each period's fit against chance (permutation test draws; 0 = no "
+                   "test).")
+@click.option("--k-range", default="2-8", show_default=True,
+              help="With --positions auto: the smallest and largest number of positions tried, as MIN-MAX.")
+@click.option("--linkage",
+              help="structural, regular: how groups of actors are joined while clustering: average, complete, ward or "
+                   "single (hierarchical-clustering linkage).")
+@click.option("--measure", type=click.Choice(["euclidean", "correlation"]),
+              help="structural: how to compare two actors' ties: euclidean (distance) or correlation.")
+@click.option("--restarts", type=int,
+              help="optimize, sbm: how many random starting points to try; more is slower and surer (restarts).")
+@click.option("--exact", is_flag=True,
+              help="regular: put actors together only when their kinds of ties match exactly (the maximal regular "
+                   "partition; ties present or absent).")
+@click.option("--degree-corrected", is_flag=True,
+              help="sbm: allow actors of one position to differ in how many ties they have, so very active actors do not"
+                   " get a position of their own (degree correction).")
+@click.option("--model", "sbm_model", type=click.Choice(["poisson", "bernoulli"]),
+              help="sbm: poisson for counts of events (default) or bernoulli for ties that are simply present or absent.")
+@click.option("--joint", is_flag=True,
+              help="sbm: one model over all periods, so that position k means the same in every period (dynamic "
+                   "stochastic blockmodel).")
 @click.option("--smooth", "smoothing", default="auto", show_default=True,
-              help="Penalty (nats) on changing position between consecutive periods: auto, off (each period alone) or a number.")
+              help="How strongly to resist changes of position from one period to the next (change penalty, in nats): "
+                   "auto, off (fit each period alone) or a number; higher means fewer, surer moves.")
 @click.pass_context
 def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations, draws, k_range, linkage, measure,
         restarts, exact, degree_corrected, sbm_model, joint, smoothing):
-    """Find positions in every period (or --periods) and store the fit."""
+    """Find the positions in every period (or --periods) and store the result (a fit).
+
+    A position is a group of actors with the same pattern of ties to the others.
+    """
     from rich.progress import Progress
 
     from tracker.errors import UsageError
@@ -328,7 +389,7 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
 @listing
 @click.pass_context
 def fits(ctx, fmt, output):
-    """List stored fits; the current one is used by show, export, align ..."""
+    """List stored fits with their settings; show, export, align and the other commands use the current one."""
     frame = _study(ctx).fits()
     if fmt == "table":
         frame = frame.drop(columns=["params"])
@@ -339,15 +400,16 @@ def fits(ctx, fmt, output):
 @click.argument("fit_id", type=int)
 @click.pass_context
 def use_fit(ctx, fit_id):
-    """Make stored fit FIT_ID the current one."""
+    """Make stored fit FIT_ID the one the other commands use (the current fit)."""
     _study(ctx).use_fit(fit_id)
     click.echo(f"fit {fit_id} is now current")
 
 
 @main.command()
 @click.argument("period")
-@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
-@click.option("--relation", help="Only this relation.")
+@click.option("--fit", "fit_id", type=int,
+              help="Which stored fit (its number in roletrail fits; default: the current one).")
+@click.option("--relation", help="Only this kind of tie (relation).")
 @click.pass_context
 def show(ctx, period, fit_id, relation):
     """Show PERIOD's density table and image side by side."""
@@ -383,12 +445,20 @@ def show(ctx, period, fit_id, relation):
 
 @main.command()
 @listing
-@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
-@click.option("--draws", default=199, show_default=True, type=int, help="Random images for the significance of each ideal.")
-@click.option("--sentences/--no-sentences", default=True, help="Also print plain sentences about the changes (table format).")
+@click.option("--fit", "fit_id", type=int,
+              help="Which stored fit (its number in roletrail fits; default: the current one).")
+@click.option("--draws", default=199, show_default=True, type=int,
+              help="Random images used to test whether each structure is clearer than chance (more is slower and more "
+                   "precise).")
+@click.option("--sentences/--no-sentences", default=True,
+              help="Also print plain sentences about the changes (table format).")
 @click.pass_context
 def structures(ctx, fmt, output, fit_id, draws, sentences):
-    """The closest ideal structure of each period's image, and when it changes."""
+    """For each period, the textbook structure its image is closest to, and when that changes.
+
+    The structures (ideal images) are cohesive subgroups, core-periphery, centralized, hierarchy and transitive;
+    roletrail explain TERM says what each means.
+    """
     study = _study(ctx)
     table = study.structures(fit=fit_id, draws=draws)
     _emit(_structures_frame(table), fmt, output, title="Ideal structures")
@@ -402,19 +472,31 @@ def _structures_frame(table: pd.DataFrame) -> pd.DataFrame:
 
 
 @main.command()
-@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@click.option("--fit", "fit_id", type=int,
+              help="Which stored fit (its number in roletrail fits; default: the current one).")
 @click.option("--overlap-weight", default=0.5, show_default=True, type=float,
-              help="Weight of membership overlap against role similarity when linking positions.")
-@click.option("--link-threshold", default=0.2, show_default=True, type=float, help="Least similarity to continue a track.")
-@click.option("--split-threshold", default=0.3, show_default=True, type=float, help="Least overlap for a split or merge.")
-@click.option("--max-gap", default=0, show_default=True, type=int, help="Periods a track may be missing and still continue.")
-@click.option("--draws", default=20, show_default=True, type=int, help="Bootstrap draws for move confidence (0 = none).")
-@click.option("--seed", type=int, help="Seed of the bootstrap (default: the fit's seed).")
-@click.option("--rebuild", is_flag=True, help="Align every period again (track ids and names carried over by best match).")
-@click.option("--include-isolates", is_flag=True, help="Count moves into and out of the no-tie track as moves.")
+              help="When linking positions across periods, how much shared members count (1) against a similar role "
+                   "toward the other positions (0) (overlap weight).")
+@click.option("--link-threshold", default=0.2, show_default=True, type=float,
+              help="How similar (0-1) a position must be to one of the period before to continue its track; below it a "
+                   "new track starts (link threshold).")
+@click.option("--split-threshold", default=0.3, show_default=True, type=float,
+              help="Share of members (0-1) a new position must share with a track to count as split from it, or a track "
+                   "with a position to count as merged into it (split threshold).")
+@click.option("--max-gap", default=0, show_default=True, type=int,
+              help="How many periods a track may be missing and still continue afterwards.")
+@click.option("--draws", default=20, show_default=True, type=int,
+              help="Resampled copies of the data used to judge how sure each move is (bootstrap draws; 0 = none).")
+@click.option("--seed", type=int,
+              help="Starting number of the resampling (seed; default: the fit's seed); the same seed gives the same "
+                   "confidences.")
+@click.option("--rebuild", is_flag=True,
+              help="Link every period again from scratch (track numbers and names carried over by best match).")
+@click.option("--include-isolates", is_flag=True,
+              help="Count going into or out of the no-tie group (actors without ties in a period) as moves.")
 @click.pass_context
 def align(ctx, fit_id, overlap_weight, link_threshold, split_threshold, max_gap, draws, seed, rebuild, include_isolates):
-    """Link positions across periods into tracks; find moves and their confidence."""
+    """Link positions across periods into tracks (lasting positions); find who moved and how sure each move is."""
     result = _study(ctx).align(
         fit=fit_id, weight_overlap=overlap_weight, link_threshold=link_threshold, split_threshold=split_threshold,
         max_gap=max_gap, draws=draws, seed=seed, rebuild=rebuild, include_isolates=include_isolates,
@@ -431,17 +513,19 @@ def align(ctx, fit_id, overlap_weight, link_threshold, split_threshold, max_gap,
 
 @main.command()
 @listing
-@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@click.option("--fit", "fit_id", type=int,
+              help="Which stored fit (its number in roletrail fits; default: the current one).")
 @click.pass_context
 def tracks(ctx, fmt, output, fit_id):
-    """List tracks (persistent positions) with their names and life span."""
+    """List tracks (positions followed across periods) with their names and life span."""
     _emit(_study(ctx).tracks(fit_id), fmt, output, title="Tracks")
 
 
 @main.command("name-track")
 @click.argument("track", type=int)
 @click.argument("name")
-@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@click.option("--fit", "fit_id", type=int,
+              help="Which stored fit (its number in roletrail fits; default: the current one).")
 @click.pass_context
 def name_track(ctx, track, name, fit_id):
     """Give TRACK a NAME (kept through re-alignment and updates)."""
@@ -451,11 +535,13 @@ def name_track(ctx, track, name, fit_id):
 
 @main.command()
 @listing
-@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
-@click.option("--min-confidence", type=float, default=None, help="Only moves at least this sure (default: all, flagged).")
+@click.option("--fit", "fit_id", type=int,
+              help="Which stored fit (its number in roletrail fits; default: the current one).")
+@click.option("--min-confidence", type=float, default=None,
+              help="Only moves at least this sure (confidence 0-1; default: all, with unsure ones flagged).")
 @click.pass_context
 def moves(ctx, fmt, output, fit_id, min_confidence):
-    """Who moved, from which track to which, when, and how sure."""
+    """Who moved, from which track to which, when, and how sure (confidence)."""
     frame = _study(ctx).moves(fit_id)
     if min_confidence is not None:
         frame = frame[frame["confidence"].fillna(0) >= min_confidence]
@@ -468,10 +554,11 @@ def moves(ctx, fmt, output, fit_id, min_confidence):
 
 @main.command()
 @listing
-@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@click.option("--fit", "fit_id", type=int,
+              help="Which stored fit (its number in roletrail fits; default: the current one).")
 @click.pass_context
 def transitions(ctx, fmt, output, fit_id):
-    """Transition counts and shares between tracks, per step and pooled."""
+    """How many actors went from each track to each other, per step between periods and in total (counts and shares)."""
     _emit(_study(ctx).transitions(fit_id), fmt, output, title="Transitions")
 
 
@@ -481,12 +568,15 @@ EXPORTS = ("memberships", "blocks", "fit-periods", "structures", "moves", "trans
 
 @main.command()
 @click.argument("what", type=click.Choice(EXPORTS))
-@click.option("--format", "fmt", type=click.Choice(["csv", "json"]), default="csv", show_default=True)
-@click.option("-o", "--output", type=click.Path(dir_okay=False), default=None, help="File to write (default: standard output).")
-@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@click.option("--format", "fmt", type=click.Choice(["csv", "json"]), default="csv", show_default=True,
+              help="csv for spreadsheets, json for other programs.")
+@click.option("-o", "--output", type=click.Path(dir_okay=False), default=None,
+              help="File to write (default: the screen, standard output).")
+@click.option("--fit", "fit_id", type=int,
+              help="Which stored fit (its number in roletrail fits; default: the current one).")
 @click.pass_context
 def export(ctx, what, fmt, output, fit_id):
-    """Export results of the current fit (graphml: one file per period into folder -o)."""
+    """Export results of the current fit as a table (graphml: one network file per period into folder -o)."""
     study = _study(ctx)
     if what == "graphml":
         folder = output or "graphml"
@@ -514,10 +604,12 @@ def _export_frame(study, what: str, fit_id):
 @main.command()
 @click.option("-o", "--output", default="roletrail-report.html", show_default=True, type=click.Path(dir_okay=False),
               help="The HTML file to write.")
-@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
-@click.option("--anonymise", is_flag=True, help="Replace actor labels with codes (A001 ...) everywhere.")
+@click.option("--fit", "fit_id", type=int,
+              help="Which stored fit (its number in roletrail fits; default: the current one).")
+@click.option("--anonymise", is_flag=True,
+              help="Replace actor names with codes (A001 ...) everywhere in the report, charts included.")
 @click.option("--structure-draws", default=199, show_default=True, type=int,
-              help="Random images for the significance of ideal structures.")
+              help="Random images used to test each period's structure against chance (more is slower and more precise).")
 @click.pass_context
 def report(ctx, output, fit_id, anonymise, structure_draws):
     """Write the self-contained offline HTML report (one file; no network needed)."""
@@ -527,8 +619,10 @@ def report(ctx, output, fit_id, anonymise, structure_draws):
 
 @main.command()
 @click.argument("name")
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False), help="File: .png, .svg or .json (Vega-Lite).")
-@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
+              help="File to write: .png, .svg or .json (a Vega-Lite chart description).")
+@click.option("--fit", "fit_id", type=int,
+              help="Which stored fit (its number in roletrail fits; default: the current one).")
 @click.option("--actor", help="trajectory: the actor shown first.")
 @click.pass_context
 def chart(ctx, name, output, fit_id, actor):
@@ -543,7 +637,8 @@ def chart(ctx, name, output, fit_id, actor):
 @click.option("--out", default="roletrail-demo", show_default=True, type=click.Path(file_okay=False),
               help="Folder for the demo study and its report.")
 @click.option("--list", "list_only", is_flag=True, help="List the bundled scenarios and stop.")
-@click.option("--draws", default=10, show_default=True, type=int, help="Bootstrap draws for move confidence.")
+@click.option("--draws", default=10, show_default=True, type=int,
+              help="Resampled copies of the data used to judge how sure each move is (bootstrap draws).")
 def demo(scenario, out, list_only, draws):
     """Run a bundled invented scenario end to end: import, fit, align, report."""
     from tracker.demo import DEFAULT_SCENARIO, list_scenarios, run_demo
@@ -555,6 +650,109 @@ def demo(scenario, out, list_only, draws):
     paths = run_demo(scenario or DEFAULT_SCENARIO, out, draws=draws, say=click.echo)
     click.echo(f"study: {paths['study']}")
     click.echo(f"report: {paths['report']} (open it in any browser; it works offline)")
+
+
+@main.command("run")
+@click.argument("analysis_file", type=click.Path(dir_okay=False))
+@click.option("--record", is_flag=True,
+              help="Write ANALYSIS_FILE from this study instead of running it: every import with its column "
+                   "mapping, alias, fit with all its settings and seed, alignment and track name, plus a results "
+                   "file beside it that replicate compares with.")
+@click.option("--data", "data_dir", type=click.Path(file_okay=False),
+              help="Folder that holds the data files (default: the folder of ANALYSIS_FILE).")
+@click.option("--report/--no-report", "with_report", default=True, show_default=True,
+              help="Include the report step (with --record: add one; when running: write the report the file asks for).")
+@click.option("--title", help="With --record: a title for the analysis, kept in the file.")
+@click.pass_context
+def run_cmd(ctx, analysis_file, record, data_dir, with_report, title):
+    """Replay a whole analysis from ANALYSIS_FILE (TOML) into a new study, or write one with --record."""
+    from pathlib import Path
+
+    from tracker import replication
+
+    if record:
+        stem = Path(analysis_file).with_suffix("").name
+        result = replication.record(_study(ctx), analysis_file, report=f"{stem}-report.html" if with_report else None,
+                                    title=title, say=click.echo)
+        steps = ", ".join(f"{n} {what}" for what, n in result["steps"].items() if n)
+        click.echo(f"wrote {result['analysis']} ({steps}) and the results {result['results']}")
+        click.echo(f"check it with: roletrail replicate {result['analysis']}")
+        return
+    result = replication.run(analysis_file, ctx.obj["db"], data_dir=data_dir, skip_report=not with_report,
+                             say=click.echo)
+    click.echo(f"replayed {analysis_file} into {result['study']}")
+
+
+@main.command()
+@click.argument("analysis_file", type=click.Path(dir_okay=False))
+@click.option("--into", metavar="PATH|URL",
+              help="Replay into this new study and keep it (default: a temporary study, removed afterwards).")
+@click.option("--against", metavar="PATH|URL",
+              help="Compare with the results stored in this study instead of the results file that goes with "
+                   "ANALYSIS_FILE (fits are matched by their settings).")
+@click.option("--tolerance", type=float, default=0.0, show_default=True,
+              help="Largest difference allowed between decimal results such as densities and confidences "
+                   "(0 = exactly equal). Labels, counts, positions and tracks must always be equal.")
+@click.option("--data", "data_dir", type=click.Path(file_okay=False),
+              help="Folder that holds the data files (default: the folder of ANALYSIS_FILE).")
+@click.option("--limit", default=10, show_default=True, type=click.IntRange(min=1),
+              help="Differences listed per table before the rest are counted.")
+@click.option("--report/--no-report", "with_report", default=True, show_default=True,
+              help="Also build the report the file asks for (in the temporary study's folder).")
+def replicate(analysis_file, into, against, tolerance, data_dir, limit, with_report):
+    """Re-run ANALYSIS_FILE from its data and confirm every stored result is identical.
+
+    Exit status 0 = identical, 1 = results differ (each difference listed), 2 = the data
+    changed or the file cannot be replayed.
+    """
+    from tracker import replication
+
+    result = replication.replicate(analysis_file, into=into, against=against, tolerance=tolerance,
+                                   data_dir=data_dir, limit=limit, skip_report=not with_report, say=click.echo)
+
+    def line(found: dict) -> str:
+        return ", ".join(f"{k} {found.get(k, '?')}" for k in ("roletrail", "python", "numpy", "scipy", "pandas",
+                                                               "scikit-learn"))
+
+    click.echo(f"recorded with: {line(result.recorded_versions)}" if result.recorded_versions else
+               "recorded with: (versions not stored)")
+    click.echo(f"replayed with: {line(result.versions)}")
+    if result.version_changes():
+        click.echo(f"note: versions changed ({'; '.join(result.version_changes())}); decimals may then differ in "
+                   "their last digits (see --tolerance)")
+    for seeds in result.analysis.seeds():
+        click.echo(f"seeds: {seeds}")
+    click.echo(f"data: {len(result.analysis.imports)} files, each with the recorded SHA-256")
+    rows = sum(result.compared.values())
+    tol = "exact equality of every value" if result.tolerance == 0 else \
+        f"decimals within {result.tolerance:g}, labels and counts exact"
+    click.echo(f"compared {rows} stored rows in {len(result.compared)} tables with {result.reference} ({tol})")
+    if result.identical:
+        click.echo("identical: every stored result of the replay equals the recorded one")
+        return
+    click.echo(f"NOT identical: {len(result.differences)} difference(s)")
+    for diff in result.differences:
+        click.echo(f"  {diff}")
+    sys.exit(1)
+
+
+@main.command()
+@click.argument("term", nargs=-1)
+def explain(term):
+    """Explain a term in plain words, with its formula and published source; alone, list the terms."""
+    import shutil
+
+    from tracker import glossary
+
+    if not term:
+        entries = [glossary.GLOSSARY[t] for t in glossary.terms()]
+        width = max(len(e.term) for e in entries)
+        for entry in entries:
+            click.echo(f"{entry.term:<{width}}  {entry.summary}")
+        click.echo("\nroletrail explain TERM says more (formula and published source).")
+        return
+    entry = glossary.lookup(" ".join(term))
+    click.echo(glossary.as_text(entry, min(shutil.get_terminal_size((80, 24)).columns, 100)))
 
 
 if __name__ == "__main__":  # pragma: no cover

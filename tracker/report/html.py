@@ -138,6 +138,7 @@ def build_report(
         _charts_section(charts),
         _moves_section(_moves(frames, periods), periods, names, threshold),
         _tracks_section(frames.get("tracks"), names),
+        _glossary_section(),
         f"<footer>Report made with roletrail {_e(_version(meta))}. "
         "It needs no network: the chart software is inside this file.</footer>",
     ]
@@ -167,7 +168,7 @@ def _contents(charts: list[tuple[str, str, str, dict]]) -> str:
     links = [("data", "The data"), ("method", "Method and parameters"),
              ("changes", "What changed"), ("cautions", "Read with care")]
     links += [(chart_id, title) for chart_id, title, _, _ in charts]
-    links += [("moves", "Moves"), ("tracks", "Tracks")]
+    links += [("moves", "Moves"), ("tracks", "Tracks"), ("glossary", "Words used in this report")]
     items = "".join(f"<li><a href=\"#{i}\">{_e(t)}</a></li>" for i, t in links)
     return f"<nav aria-label=\"Contents\"><ol>{items}</ol></nav>"
 
@@ -319,6 +320,22 @@ def _tracks_section(tracks: pd.DataFrame | None, names: Mapping[int, str]) -> st
     return ("<section id=\"tracks\"><h2>Tracks</h2><p>A track follows one position across "
             "periods after alignment; track 0 holds actors with no tie in a period.</p>"
             + _sortable(head, rows, "Tracks") + "</section>")
+
+
+def _glossary_section() -> str:
+    """The glossary (:mod:`tracker.glossary`, the same text as ``roletrail explain``): plain words, formula, sources."""
+    from tracker.glossary import GLOSSARY, terms
+
+    items = []
+    for term in terms():
+        entry = GLOSSARY[term]
+        anchor = "term-" + "-".join(term.split())
+        formula = f"<p class=\"formula\">{_e(entry.formula)}</p>" if entry.formula else ""
+        sources = "; ".join(_e(s) for s in entry.sources)
+        items.append(f"<h3 id=\"{anchor}\">{_e(term)}</h3><p>{_e(entry.plain)}</p>{formula}"
+                     f"<p class=\"note\">Source: {sources}.</p>")
+    return ("<section id=\"glossary\"><h2>Words used in this report</h2><p>The same explanations are printed by "
+            "<span class=\"formula\">roletrail explain TERM</span>.</p>" + "".join(items) + "</section>")
 
 
 # --------------------------------------------------------------------------- charts
@@ -544,6 +561,8 @@ tr.low td { color: var(--muted); font-style: italic; }
 .cautions { background: #fff8c5; border-left: 4px solid #d4a72c; padding: .2rem 1.2rem .6rem; }
 .cautions h2 { border: none; margin-top: .8rem; }
 ul.story li { margin: .25rem 0; }
+#glossary h3 { margin-bottom: .2rem; }
+.formula { font-family: ui-monospace, "SFMono-Regular", Menlo, Consolas, monospace; font-size: .9rem; }
 figure { margin: 1.5rem 0 2.5rem; }
 .chart { overflow-x: auto; max-width: 100%; }
 footer { margin-top: 3rem; color: var(--muted); font-size: .85rem; }
