@@ -259,7 +259,7 @@ def _split(values) -> list[str] | None:
               help="structural, concor, regular, optimize or sbm.")
 @click.option("--positions", default="4", show_default=True, help="Positions of the tied actors per period, or 'auto'.")
 @click.option("--criterion", default="zero-block", show_default=True,
-              type=click.Choice(["zero-block", "one-block", "density", "max-value", "mean-value"]),
+              type=click.Choice(["zero-block", "one-block", "density", "max-value", "mean-value", "above-background"]),
               help="How blocks become image cells.")
 @click.option("--alpha", type=float, help="Density threshold of the density criterion (default: whole-network density).")
 @click.option("--cut", type=float, help="Value threshold of the max-value criterion (default: median tie value).")
