@@ -25,7 +25,7 @@ from tracker.ingest.periods import PeriodScheme, parse_scheme
 from tracker.ingest.reader import file_hash, open_table
 from tracker.ingest.roster import validate_roster
 from tracker.measures import network_measures
-from tracker.pipeline.fitting import period_selection
+from tracker.pipeline.fitting import period_selection, with_q_values
 from tracker.pipeline.tracking import track_names
 from tracker.snapshot import Snapshot
 from tracker.store.database import open_engine, resolve_url, sqlite_path, upgrade
@@ -209,17 +209,21 @@ class Study:
         seed: int = 0,
         periods: Sequence[str] | None = None,
         relations: Sequence[str] | None = None,
-        draws: int = 99,
+        draws: int = 39,
         k_min: int = 2,
         k_max: int = 8,
         options: dict | None = None,
         smoothing: float | str = "auto",
         progress: Callable[[str], None] | None = None,
+        null_model: str = "ties",
     ) -> dict:
         """Find positions in each period (all by default) and store the fit.
 
         Returns ``{"fit": id, "periods": DataFrame}`` with one row per fitted
-        period (positions, inconsistencies, density correlation, p-value).
+        period (positions, inconsistencies, density correlation, fit-test
+        p-value against ``draws`` refits on ``null_model`` draws, its
+        Benjamini-Hochberg ``q_value`` across the fit's periods; see
+        :mod:`tracker.inference.fit_test`).
         A fit with the same settings as an earlier one extends it (new
         periods) or refreshes it; other settings make a new fit.  Either way
         the fit becomes current.
@@ -238,11 +242,11 @@ class Study:
         settings = FitSettings(
             method=method, positions=positions, criterion=criterion, alpha=alpha, cut=cut, seed=seed,
             relations=tuple(relations) if relations else None, draws=draws, k_min=k_min, k_max=k_max,
-            options=dict(options or {}), smoothing=smoothing,
+            options=dict(options or {}), smoothing=smoothing, null_model=null_model,
         )
         results = run_fit(self.store, settings, period_selection(self.store, periods), progress)
         fit_id = self.store.save_fit(settings, results, __version__)
-        return {"fit": fit_id, "periods": self.store.fit_periods(fit_id).drop(columns=["diagnostics"])}
+        return {"fit": fit_id, "periods": with_q_values(self.store.fit_periods(fit_id)).drop(columns=["diagnostics"])}
 
     def fits(self) -> pd.DataFrame:
         """Every stored fit with its settings; ``current`` marks the one other verbs use."""
@@ -272,8 +276,9 @@ class Study:
         return self.store.blocks(self.store.current_fit(fit)["id"])
 
     def fit_periods(self, fit: int | None = None) -> pd.DataFrame:
-        """Per-period fit results: positions, inconsistencies, density correlation, p-value, diagnostics."""
-        return self.store.fit_periods(self.store.current_fit(fit)["id"])
+        """Per-period fit results: positions, inconsistencies, density correlation, fit-test p-value,
+        its Benjamini-Hochberg q-value across periods (``q_value``), draws, null model, diagnostics."""
+        return with_q_values(self.store.fit_periods(self.store.current_fit(fit)["id"]))
 
     def show(self, period: str, *, fit: int | None = None, relation: str | None = None) -> dict:
         """One period's density tables and images (per relation), positions labelled with their sizes.

@@ -266,7 +266,10 @@ def _split(values) -> list[str] | None:
 @click.option("--seed", default=0, show_default=True, type=int, help="Seed of every random step.")
 @_periods_option
 @click.option("--relation", "relations", multiple=True, help="Fit only these relations (jointly); default all.")
-@click.option("--draws", default=99, show_default=True, type=int, help="Permutation-test draws per period (0 = no test).")
+@click.option("--draws", default=39, show_default=True, type=int,
+              help="Fit test: null-model draws per period, each one refit (0 = no test).")
+@click.option("--null", "null_model", default="ties", show_default=True, type=click.Choice(["ties", "degrees"]),
+              help="Fit-test null model: ties (tie count and values kept) or degrees (every actor's degrees kept).")
 @click.option("--k-range", default="2-8", show_default=True, help="Range of positions tried by --positions auto.")
 @click.option("--linkage", help="structural/regular: hierarchical-clustering linkage (average, complete, ward, single).")
 @click.option("--measure", type=click.Choice(["euclidean", "correlation"]), help="structural: distance measure.")
@@ -278,8 +281,8 @@ def _split(values) -> list[str] | None:
 @click.option("--smooth", "smoothing", default="auto", show_default=True,
               help="Penalty (nats) on changing position between consecutive periods: auto, off (each period alone) or a number.")
 @click.pass_context
-def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations, draws, k_range, linkage, measure,
-        restarts, exact, degree_corrected, sbm_model, joint, smoothing):
+def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations, draws, null_model, k_range, linkage,
+        measure, restarts, exact, degree_corrected, sbm_model, joint, smoothing):
     """Find positions in every period (or --periods) and store the fit."""
     from rich.progress import Progress
 
@@ -318,7 +321,7 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
         result = study.fit(
             method=method, positions=positions, criterion=criterion, alpha=alpha, cut=cut, seed=seed,
             periods=selected, relations=_split(relations), draws=draws, k_min=k_min, k_max=k_max,
-            options=options, smoothing=smoothing, progress=lambda _p: bar.advance(task),
+            options=options, smoothing=smoothing, progress=lambda _p: bar.advance(task), null_model=null_model,
         )
     click.echo(f"fit {result['fit']} ({method}, {criterion}, seed {seed}) is now current")
     _emit(result["periods"], "table", None)
@@ -363,7 +366,7 @@ def show(ctx, period, fit_id, relation):
     console.print(Text(
         f"Period {view['period']} - fit {view['fit']}, criterion {view['criterion']}: "
         f"{row['positions']} positions, {row['inconsistencies']:g} inconsistencies, "
-        f"density correlation {corr}, permutation p {p}" + (" (perfect fit)" if row["perfect_fit"] else "")
+        f"density correlation {corr}, fit-test p {p}" + (" (perfect fit)" if row["perfect_fit"] else "")
     ))
     for rel, parts in view["relations"].items():
         dens, img = parts["density"], parts["image"]
