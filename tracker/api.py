@@ -320,24 +320,35 @@ class Study:
 
     # ------------------------------------------------------------------ structures
     def structures(self, *, fit: int | None = None, draws: int = 199, seed: int | None = None,
-                   raw_check: bool = True) -> pd.DataFrame:
+                   raw_check: bool = True, basis: str = "ties") -> pd.DataFrame:
         """The closest ideal image per period and relation, with its fit and significance.
 
-        For each period and relation of the fit, the image under the fit's
-        criterion (without the isolates' position, which is empty by
-        construction and would flatter every ideal with empty rows) is compared
-        with every ideal image over all orderings of its positions
-        (:func:`tracker.structures.ideal.classify_image`); the best one is kept
-        with ``mismatches``, ``fit`` = 1 - mismatches / B^2 and a p-value
-        against ``draws`` random images of the same density.  Beside it, the
+        For each period and relation of the fit, the blocks (without the
+        isolates' position, which is empty by construction and would flatter
+        every ideal with empty rows) are compared with every ideal image over
+        all orderings of its positions
+        (:func:`tracker.structures.ideal.classify_image`).  With ``basis="ties"``
+        (default) the comparison counts inconsistencies on the ties
+        themselves, normalised per block (the block densities; robust to
+        stray ties, see :mod:`tracker.structures.ideal`); ``basis="image"``
+        compares the 0/1 image under the fit's criterion instead.  The best
+        ideal is kept with ``mismatches``, ``fit`` = 1 - mismatches / B^2 and a
+        p-value against ``draws`` random rearrangements of its blocks; a
+        structure is ``significant`` when that p-value and the period's
+        fit test both pass after Benjamini-Hochberg correction
+        (``q_value``, ``fit_q_value``), else ``structure`` says "no clear
+        structure" (:func:`tracker.structures.change.structures_over_time`).  Beside it, the
         discrete and continuous core-periphery correlations of Borgatti &
         Everett (1999) on the raw ties (``cp_correlation``,
         ``coreness_correlation``) check the image-level answer.  Positions are
         named by their track when the fit is aligned (see :meth:`align`).
 
         Returns columns ``period, relation, ideal, variant, mismatches, fit,
-        p_value, roles, changed, cp_correlation, coreness_correlation``.
+        p_value, roles, changed, q_value, fit_q_value, significant, structure,
+        cp_correlation, coreness_correlation``.
         """
+        if basis not in ("ties", "image"):
+            raise UsageError(f"basis must be 'ties' or 'image', not {basis!r}")
         from tracker.structures.change import structures_over_time
         from tracker.structures.coreperiphery import continuous_coreness, discrete_core_periphery
         from tracker.structures.ideal import classify_image, closest_ideal
@@ -360,13 +371,15 @@ class Study:
             for rel, sub in part.groupby("relation", sort=True):
                 if len(kept) < 2:
                     continue
-                img = sub.pivot(index="from_position", columns="to_position", values="image").loc[kept, kept].to_numpy()
+                values = "density" if basis == "ties" else "image"
+                img = sub.pivot(index="from_position", columns="to_position", values=values).loc[kept, kept].to_numpy()
                 best = (classify_image(img, draws=draws, seed=seed) if draws else closest_ideal(img, seed=seed))[0]
                 rows.append((period, rel, best))
                 if snap is not None:
                     extra[(period, rel)] = _core_periphery_check(snap.matrix(rel), seed,
                                                                   discrete_core_periphery, continuous_coreness)
-        table = structures_over_time(rows, labels=labels, periods=periods)
+        fit_q = with_q_values(fp.reset_index()).set_index("period")["q_value"].to_dict()
+        table = structures_over_time(rows, labels=labels, periods=periods, fit_q_values=fit_q)
         table["cp_correlation"] = [extra.get((p, r), (np.nan, np.nan))[0] for p, r in zip(table["period"], table["relation"])]
         table["coreness_correlation"] = [extra.get((p, r), (np.nan, np.nan))[1] for p, r in zip(table["period"], table["relation"])]
         return table
