@@ -80,7 +80,8 @@ def test_summary_lists_clear_periods_changes_and_the_rest():
         "The cooperation structure is clear in 3 of 4 periods: core-periphery in 2013-2014 (core: Track A); "
         "cohesive-subgroups in 2016.",
         "From 2014 to 2016 the cooperation structure changed from core-periphery to cohesive-subgroups.",
-        "In 2015 the cooperation ties show no clear structure (no clearer than random ties at the 0.05 level).",
+        "In 2015 the cooperation ties show no clear structure (the positions or the closest ideal are no "
+        "clearer than random ties at the 0.05 level).",
     ]
 
 

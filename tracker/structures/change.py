@@ -9,7 +9,8 @@ example the names of aligned position tracks).
 
 A structure is **clear** when both tests say so at the level ``alpha``
 (0.05, common practice), after Benjamini-Hochberg correction across the
-table's periods and relations (Benjamini & Hochberg 1995):
+periods (Benjamini & Hochberg 1995; one family per relation, since each
+relation asks its own question):
 
 * the ideal's own test (:func:`tracker.structures.ideal.ideal_significance`:
   the ideal fits better than the same blocks rearranged at random), and
@@ -94,7 +95,7 @@ def structures_over_time(
         ``parts`` (dict from role to the tuple of names holding it, in rank
         order), ``changed`` (a clear structure whose ideal differs from the
         relation's previous clear structure), ``q_value`` (Benjamini-Hochberg
-        over the table's ideal p-values), ``fit_q_value`` (the period's fit
+        over the relation's ideal p-values across periods), ``fit_q_value`` (the period's fit
         test), ``significant`` (True, False, or None when untested) and
         ``structure`` (the ideal, or ``"no clear structure"`` when
         ``significant`` is False).
@@ -130,7 +131,11 @@ def structures_over_time(
     records.sort(key=lambda r: (rank[r[0]], relations.index(r[1])))
 
     p_values = np.array([np.nan if f.p_value is None else float(f.p_value) for _, _, f in records])
-    q_values = benjamini_hochberg(p_values)
+    rel_of = np.array([r[1] for r in records], dtype=object)
+    q_values = np.full(len(records), np.nan)
+    for relation in relations:  # one family per relation: its periods
+        at = np.flatnonzero(rel_of == relation)
+        q_values[at] = benjamini_hochberg(p_values[at])
     out = []
     previous: dict = {}
     for (period, relation, fit), q in zip(records, q_values):
@@ -203,7 +208,7 @@ def describe_changes(table: pd.DataFrame, *, alpha: float = SIGNIFICANCE) -> lis
     ...     print(line)
     The aid structure is clear in 2 of 3 periods: core-periphery in 2014 (core: North); cohesive-subgroups in 2016.
     From 2014 to 2016 the aid structure changed from core-periphery to cohesive-subgroups.
-    In 2015 the aid ties show no clear structure (no clearer than random ties at the 0.05 level).
+    In 2015 the aid ties show no clear structure (the positions or the closest ideal are no clearer than random ties at the 0.05 level).
     """
     lines = []
     if table.empty:
@@ -227,8 +232,8 @@ def describe_changes(table: pd.DataFrame, *, alpha: float = SIGNIFICANCE) -> lis
                              f"from {before['ideal']} to {after['ideal']}.")
         if unclear:
             where = _spans([r["period"] for r in unclear], order)
-            lines.append(f"In {where} the {relation} ties show no clear structure "
-                         f"(no clearer than random ties at the {alpha:g} level).")
+            lines.append(f"In {where} the {relation} ties show no clear structure (the positions or the "
+                         f"closest ideal are no clearer than random ties at the {alpha:g} level).")
     return lines
 
 

@@ -32,7 +32,7 @@ the diagonal included.
 
 **Judged on the ties, not on a 0/1 image.**  The image may also be the
 matrix of *block densities* :math:`x_{kl} = t_{kl} / p_{kl} \in [0, 1]`
-(:func:`density_image`), and that is what :meth:`tracker.api.Study.structures`
+(:func:`density_image`; by default relative to the densest block), and that is what :meth:`tracker.api.Study.structures`
 passes.  Then :math:`|x_{kl} - t_{kl}|` is the block's inconsistencies
 counted on the ties themselves, normalised by the block's size: the share of
 its cells holding a tie where the ideal has a null block, the share of cells
@@ -60,6 +60,8 @@ References
    core-periphery).
 .. [2] White, H. C., Boorman, S. A. & Breiger, R. L. (1976). Social structure from
    multiple networks I. Am. J. Sociology 81, 730-780.
+.. [4] Ziberna, A. (2007). Generalized blockmodeling of valued networks. Social
+   Networks 29, 105-126 (cited from memory).
 .. [3] Doreian, P., Batagelj, V. & Ferligoj, A. (2005). Generalized Blockmodeling.
    Cambridge University Press (block types and their inconsistencies, ch. 6-7;
    chapter numbers cited from memory).
@@ -332,14 +334,28 @@ def _number(value) -> float | int:
     return int(round(value)) if abs(value - round(value)) < 1e-9 else value
 
 
-def density_image(ties, possible) -> np.ndarray:
+def density_image(ties, possible, *, relative: bool = True) -> np.ndarray:
     """Block densities ``t / p`` of one relation as an image for :func:`closest_ideal`.
+
+    With ``relative`` (default) the densities are divided by the relation's
+    largest block density, so the densest block counts as complete: the
+    normalised inconsistencies of valued generalized blockmodeling with the
+    level ``m`` of a "tie block" set to the densest block (Ziberna 2007,
+    cited from memory).  In sparse data, where no block is near complete, the
+    absolute densities would make every ideal with 1-blocks fit badly and
+    the best ideal would be the one with the fewest 1s; relative to the
+    densest block the pattern of dense and empty blocks is what is judged.
+    Noise cannot fake a pattern this way: scaling does not change which
+    arrangement of the blocks is best, and :func:`ideal_significance`
+    compares with the same values rearranged at random.
 
     Blocks where no tie is possible (the diagonal of a one-actor position)
     count as null (0), like in every 0/1 image.
 
-    >>> density_image([[3, 0], [1, 0]], [[6, 4], [4, 0]]).tolist()
+    >>> density_image([[3, 0], [1, 0]], [[6, 4], [4, 0]], relative=False).tolist()
     [[0.5, 0.0], [0.25, 0.0]]
+    >>> density_image([[3, 0], [1, 0]], [[6, 4], [4, 0]]).tolist()
+    [[1.0, 0.0], [0.5, 0.0]]
     """
     t = np.asarray(ties, dtype=np.float64)
     p = np.asarray(possible, dtype=np.float64)
@@ -347,8 +363,9 @@ def density_image(ties, possible) -> np.ndarray:
         raise UsageError("ties and possible must be two (B, B) tables of the same relation")
     if np.any(t < 0) or np.any(t > p):
         raise UsageError("each block needs 0 <= ties <= possible")
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(p > 0, t / np.where(p > 0, p, 1), 0.0)
+    dens = np.where(p > 0, t / np.where(p > 0, p, 1), 0.0)
+    top = dens.max() if dens.size else 0.0
+    return dens / top if relative and top > 0 else dens
 
 
 def _check_ideals(ideals: Sequence[str]) -> list[str]:
