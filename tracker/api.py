@@ -580,7 +580,7 @@ class Study:
                              "inconsistencies": row.inconsistencies,
                              "density_correlation": row.density_correlation, "chosen": True})
         tables["diagnostics"] = pd.DataFrame(diag)
-        tables["permutation"] = fp[["period", "density_correlation", "p_value"]].rename(
+        tables["permutation"] = with_q_values(fp)[["period", "density_correlation", "p_value", "q_value"]].rename(
             columns={"density_correlation": "observed"})
         structures = self.structures(fit=fit_id, draws=structure_draws)
         tables["structures"] = structures.drop(columns=["parts"], errors="ignore")
@@ -591,7 +591,8 @@ class Study:
             "study": self.path.name if self.path else "study",
             "method": params["method"], "positions": params["positions"], "criterion": params["criterion"],
             "alpha": params.get("alpha"), "cut": params.get("cut"), "seed": params["seed"],
-            "permutation draws": params.get("draws"), "smoothing": params.get("smoothing"),
+            "fit-test draws": params.get("draws"), "fit-test null model": params.get("null_model"),
+            "smoothing": params.get("smoothing"),
             "options": ", ".join(f"{k}={v}" for k, v in (params.get("options") or {}).items()) or None,
             "fit": fit_id, "fitted with version": info["version"], "version": __version__,
             "created": datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
