@@ -92,7 +92,9 @@ def test_fit_test_q_values_veto_a_clear_ideal():
     assert table["changed"].tolist() == [False, False]  # a change needs both periods clear
     assert table["fit_q_value"].tolist() == [0.01, 0.3]
     lines = describe_changes(table)
-    assert len(lines) == 2 and "changed" not in " ".join(lines)
+    assert lines[0] == ("Fit test: the positions are clearer than in random networks with as many ties in "
+                        "1 of 2 periods (q <= 0.05); not in 2014.")
+    assert len(lines) == 3 and "changed" not in " ".join(lines)
 
 
 def test_q_values_are_benjamini_hochberg_over_the_table():

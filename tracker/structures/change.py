@@ -172,7 +172,8 @@ def structures_over_time(
 def describe_changes(table: pd.DataFrame, *, alpha: float = SIGNIFICANCE) -> list[str]:
     """A short summary of each relation's structure over time.
 
-    Per relation, at most three kinds of sentence:
+    First, when the table holds fit-test q-values, one sentence on the fit
+    test.  Then, per relation, at most three kinds of sentence:
 
     1. the periods with a clear structure, grouped by ideal (with the leading
        part: core, centre or top position, when it stays the same);
@@ -214,6 +215,14 @@ def describe_changes(table: pd.DataFrame, *, alpha: float = SIGNIFICANCE) -> lis
     if table.empty:
         return lines
     order = list(dict.fromkeys(table["period"]))
+    fit_q = table.drop_duplicates("period").set_index("period")["fit_q_value"].astype(float)
+    if fit_q.notna().any():
+        tested = fit_q.dropna()
+        passed = tested[tested <= alpha]
+        text = (f"Fit test: the positions are clearer than in random networks with as many ties in "
+                f"{len(passed)} of {len(tested)} periods (q <= {alpha:g})")
+        failed = [p for p in tested.index if p not in passed.index]
+        lines.append(text + (f"; not in {_spans(failed, order)}." if failed else "."))
     for relation in dict.fromkeys(table["relation"]):
         steps = table[table["relation"] == relation].to_dict("records")
         clear = [r for r in steps if r["significant"] is not False and not _is_na(r["significant"])]
