@@ -25,7 +25,7 @@ from tracker.ingest.periods import PeriodScheme, parse_scheme
 from tracker.ingest.reader import file_hash, open_table
 from tracker.ingest.roster import validate_roster
 from tracker.measures import network_measures
-from tracker.pipeline.fitting import period_selection
+from tracker.pipeline.fitting import period_selection, with_q_values
 from tracker.pipeline.tracking import track_names
 from tracker.snapshot import Snapshot
 from tracker.store.database import open_engine, resolve_url, sqlite_path, upgrade
@@ -209,17 +209,21 @@ class Study:
         seed: int = 0,
         periods: Sequence[str] | None = None,
         relations: Sequence[str] | None = None,
-        draws: int = 99,
+        draws: int = 39,
         k_min: int = 2,
         k_max: int = 8,
         options: dict | None = None,
         smoothing: float | str = "auto",
         progress: Callable[[str], None] | None = None,
+        null_model: str = "ties",
     ) -> dict:
         """Find positions in each period (all by default) and store the fit.
 
         Returns ``{"fit": id, "periods": DataFrame}`` with one row per fitted
-        period (positions, inconsistencies, density correlation, p-value).
+        period (positions, inconsistencies, density correlation, fit-test
+        p-value against ``draws`` refits on ``null_model`` draws, its
+        Benjamini-Hochberg ``q_value`` across the fit's periods; see
+        :mod:`tracker.inference.fit_test`).
         A fit with the same settings as an earlier one extends it (new
         periods) or refreshes it; other settings make a new fit.  Either way
         the fit becomes current.
@@ -238,11 +242,11 @@ class Study:
         settings = FitSettings(
             method=method, positions=positions, criterion=criterion, alpha=alpha, cut=cut, seed=seed,
             relations=tuple(relations) if relations else None, draws=draws, k_min=k_min, k_max=k_max,
-            options=dict(options or {}), smoothing=smoothing,
+            options=dict(options or {}), smoothing=smoothing, null_model=null_model,
         )
         results = run_fit(self.store, settings, period_selection(self.store, periods), progress)
         fit_id = self.store.save_fit(settings, results, __version__)
-        return {"fit": fit_id, "periods": self.store.fit_periods(fit_id).drop(columns=["diagnostics"])}
+        return {"fit": fit_id, "periods": with_q_values(self.store.fit_periods(fit_id)).drop(columns=["diagnostics"])}
 
     def fits(self) -> pd.DataFrame:
         """Every stored fit with its settings; ``current`` marks the one other verbs use."""
@@ -272,8 +276,9 @@ class Study:
         return self.store.blocks(self.store.current_fit(fit)["id"])
 
     def fit_periods(self, fit: int | None = None) -> pd.DataFrame:
-        """Per-period fit results: positions, inconsistencies, density correlation, p-value, diagnostics."""
-        return self.store.fit_periods(self.store.current_fit(fit)["id"])
+        """Per-period fit results: positions, inconsistencies, density correlation, fit-test p-value,
+        its Benjamini-Hochberg q-value across periods (``q_value``), draws, null model, diagnostics."""
+        return with_q_values(self.store.fit_periods(self.store.current_fit(fit)["id"]))
 
     def show(self, period: str, *, fit: int | None = None, relation: str | None = None) -> dict:
         """One period's density tables and images (per relation), positions labelled with their sizes.
@@ -315,24 +320,35 @@ class Study:
 
     # ------------------------------------------------------------------ structures
     def structures(self, *, fit: int | None = None, draws: int = 199, seed: int | None = None,
-                   raw_check: bool = True) -> pd.DataFrame:
+                   raw_check: bool = True, basis: str = "ties") -> pd.DataFrame:
         """The closest ideal image per period and relation, with its fit and significance.
 
-        For each period and relation of the fit, the image under the fit's
-        criterion (without the isolates' position, which is empty by
-        construction and would flatter every ideal with empty rows) is compared
-        with every ideal image over all orderings of its positions
-        (:func:`tracker.structures.ideal.classify_image`); the best one is kept
-        with ``mismatches``, ``fit`` = 1 - mismatches / B^2 and a p-value
-        against ``draws`` random images of the same density.  Beside it, the
+        For each period and relation of the fit, the blocks (without the
+        isolates' position, which is empty by construction and would flatter
+        every ideal with empty rows) are compared with every ideal image over
+        all orderings of its positions
+        (:func:`tracker.structures.ideal.classify_image`).  With ``basis="ties"``
+        (default) the comparison counts inconsistencies on the ties
+        themselves, normalised per block (the block densities; robust to
+        stray ties, see :mod:`tracker.structures.ideal`); ``basis="image"``
+        compares the 0/1 image under the fit's criterion instead.  The best
+        ideal is kept with ``mismatches``, ``fit`` = 1 - mismatches / B^2 and a
+        p-value against ``draws`` random rearrangements of its blocks; a
+        structure is ``significant`` when that p-value and the period's
+        fit test both pass after Benjamini-Hochberg correction
+        (``q_value``, ``fit_q_value``), else ``structure`` says "no clear
+        structure" (:func:`tracker.structures.change.structures_over_time`).  Beside it, the
         discrete and continuous core-periphery correlations of Borgatti &
         Everett (1999) on the raw ties (``cp_correlation``,
         ``coreness_correlation``) check the image-level answer.  Positions are
         named by their track when the fit is aligned (see :meth:`align`).
 
         Returns columns ``period, relation, ideal, variant, mismatches, fit,
-        p_value, roles, changed, cp_correlation, coreness_correlation``.
+        p_value, roles, changed, q_value, fit_q_value, significant, structure,
+        cp_correlation, coreness_correlation``.
         """
+        if basis not in ("ties", "image"):
+            raise UsageError(f"basis must be 'ties' or 'image', not {basis!r}")
         from tracker.structures.change import structures_over_time
         from tracker.structures.coreperiphery import continuous_coreness, discrete_core_periphery
         from tracker.structures.ideal import classify_image, closest_ideal
@@ -355,13 +371,15 @@ class Study:
             for rel, sub in part.groupby("relation", sort=True):
                 if len(kept) < 2:
                     continue
-                img = sub.pivot(index="from_position", columns="to_position", values="image").loc[kept, kept].to_numpy()
+                values = "density" if basis == "ties" else "image"
+                img = sub.pivot(index="from_position", columns="to_position", values=values).loc[kept, kept].to_numpy()
                 best = (classify_image(img, draws=draws, seed=seed) if draws else closest_ideal(img, seed=seed))[0]
                 rows.append((period, rel, best))
                 if snap is not None:
                     extra[(period, rel)] = _core_periphery_check(snap.matrix(rel), seed,
                                                                   discrete_core_periphery, continuous_coreness)
-        table = structures_over_time(rows, labels=labels, periods=periods)
+        fit_q = with_q_values(fp.reset_index()).set_index("period")["q_value"].to_dict()
+        table = structures_over_time(rows, labels=labels, periods=periods, fit_q_values=fit_q)
         table["cp_correlation"] = [extra.get((p, r), (np.nan, np.nan))[0] for p, r in zip(table["period"], table["relation"])]
         table["coreness_correlation"] = [extra.get((p, r), (np.nan, np.nan))[1] for p, r in zip(table["period"], table["relation"])]
         return table
@@ -562,7 +580,7 @@ class Study:
                              "inconsistencies": row.inconsistencies,
                              "density_correlation": row.density_correlation, "chosen": True})
         tables["diagnostics"] = pd.DataFrame(diag)
-        tables["permutation"] = fp[["period", "density_correlation", "p_value"]].rename(
+        tables["permutation"] = with_q_values(fp)[["period", "density_correlation", "p_value", "q_value"]].rename(
             columns={"density_correlation": "observed"})
         structures = self.structures(fit=fit_id, draws=structure_draws)
         tables["structures"] = structures.drop(columns=["parts"], errors="ignore")
@@ -573,7 +591,8 @@ class Study:
             "study": self.path.name if self.path else "study",
             "method": params["method"], "positions": params["positions"], "criterion": params["criterion"],
             "alpha": params.get("alpha"), "cut": params.get("cut"), "seed": params["seed"],
-            "permutation draws": params.get("draws"), "smoothing": params.get("smoothing"),
+            "fit-test draws": params.get("draws"), "fit-test null model": params.get("null_model"),
+            "smoothing": params.get("smoothing"),
             "options": ", ".join(f"{k}={v}" for k, v in (params.get("options") or {}).items()) or None,
             "fit": fit_id, "fitted with version": info["version"], "version": __version__,
             "created": datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),

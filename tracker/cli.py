@@ -293,11 +293,12 @@ def _split(values) -> list[str] | None:
               help="How many positions to find among the actors with ties in each period, or 'auto' to choose from the "
                    "data (actors without ties get a position of their own).")
 @click.option("--criterion", default="zero-block", show_default=True,
-              type=click.Choice(["zero-block", "one-block", "density", "max-value", "mean-value"]),
+              type=click.Choice(["zero-block", "one-block", "density", "max-value", "mean-value", "above-background"]),
               help="When a block (the ties from one position to another) counts as tied in the image: zero-block (any "
                    "tie; "
                    "suits sparse data), one-block (every possible tie), density (a share of at least --alpha), "
-                   "max-value (a value reaching --cut), mean-value (a mean at least the overall mean).")
+                   "max-value (a value reaching --cut), mean-value (a mean at least the overall mean), above-background (clearly "
+                   "more ties than the whole network's density: a one-sided binomial test; suits noisy sparse data).")
 @click.option("--alpha", type=float,
               help="With --criterion density: the share of possible ties a block needs to count as tied (default: the "
                    "whole network's density).")
@@ -309,9 +310,12 @@ def _split(values) -> list[str] | None:
 @_periods_option
 @click.option("--relation", "relations", multiple=True,
               help="Fit only these kinds of tie (relations), together; default all.")
-@click.option("--draws", default=99, show_default=True, type=int,
-              help="Random reshufflings used to test each period's fit against chance (permutation test draws; 0 = no "
-                   "test).")
+@click.option("--draws", default=39, show_default=True, type=int,
+              help="How many random networks to refit when testing each period's fit against chance (null-model "
+                   "draws; 0 = no test).")
+@click.option("--null", "null_model", default="ties", show_default=True, type=click.Choice(["ties", "degrees"]),
+              help="What the random networks of the fit test keep: ties (the number of ties and their values) or "
+                   "degrees (every actor's number of ties sent and received).")
 @click.option("--k-range", default="2-8", show_default=True,
               help="With --positions auto: the smallest and largest number of positions tried, as MIN-MAX.")
 @click.option("--linkage",
@@ -336,8 +340,8 @@ def _split(values) -> list[str] | None:
               help="How strongly to resist changes of position from one period to the next (change penalty, in nats): "
                    "auto, off (fit each period alone) or a number; higher means fewer, surer moves.")
 @click.pass_context
-def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations, draws, k_range, linkage, measure,
-        restarts, exact, degree_corrected, sbm_model, joint, smoothing):
+def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations, draws, null_model, k_range, linkage,
+        measure, restarts, exact, degree_corrected, sbm_model, joint, smoothing):
     """Find the positions in every period (or --periods) and store the result (a fit).
 
     A position is a group of actors with the same pattern of ties to the others.
@@ -379,7 +383,7 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
         result = study.fit(
             method=method, positions=positions, criterion=criterion, alpha=alpha, cut=cut, seed=seed,
             periods=selected, relations=_split(relations), draws=draws, k_min=k_min, k_max=k_max,
-            options=options, smoothing=smoothing, progress=lambda _p: bar.advance(task),
+            options=options, smoothing=smoothing, progress=lambda _p: bar.advance(task), null_model=null_model,
         )
     click.echo(f"fit {result['fit']} ({method}, {criterion}, seed {seed}) is now current")
     _emit(result["periods"], "table", None)
@@ -425,7 +429,7 @@ def show(ctx, period, fit_id, relation):
     console.print(Text(
         f"Period {view['period']} - fit {view['fit']}, criterion {view['criterion']}: "
         f"{row['positions']} positions, {row['inconsistencies']:g} inconsistencies, "
-        f"density correlation {corr}, permutation p {p}" + (" (perfect fit)" if row["perfect_fit"] else "")
+        f"density correlation {corr}, fit-test p {p}" + (" (perfect fit)" if row["perfect_fit"] else "")
     ))
     for rel, parts in view["relations"].items():
         dens, img = parts["density"], parts["image"]

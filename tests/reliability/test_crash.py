@@ -156,7 +156,7 @@ def test_fit_killed_at_random_moments(tmp_path):
     with Study(before_db) as study:
         study.import_events(events, source="source", target="target", date="date", relation="kind", weight="w")
         assert len(study.periods()) == 6
-    outcome = _crash_many(tmp_path, before_db, ["fit", "--positions", "3"], seed=12)
+    outcome = _crash_many(tmp_path, before_db, ["fit", "--positions", "3", "--draws", "9"], seed=12)
     assert outcome["killed_before"] >= 3, outcome
 
 

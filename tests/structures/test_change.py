@@ -41,6 +41,7 @@ def test_table_columns_roles_and_changes():
     table = structures_over_time(rows, labels=TRACKS)
     assert list(table.columns) == [
         "period", "relation", "ideal", "variant", "mismatches", "fit", "p_value", "roles", "parts", "changed",
+        "q_value", "fit_q_value", "significant", "structure",
     ]
     assert list(zip(table["period"], table["relation"])) == [
         ("2014", "cooperation"), ("2014", "aid"), ("2015", "cooperation"),
@@ -57,51 +58,64 @@ def test_table_columns_roles_and_changes():
     assert (table["fit"] == 1.0).all() and (table["mismatches"] == 0).all()
 
 
-def test_sentences_name_the_core_by_track():
+def clear(fit, p=0.005):
+    return replace(fit, p_value=p)
+
+
+def test_summary_lists_clear_periods_changes_and_the_rest():
     image_2015 = np.array([[1, 0, 0], [0, 1, 0], [0, 0, 0]])  # one mismatch against subgroups
     rows = [
-        {"period": "2013", "relation": "cooperation", "fit": best(star(3, 0))},
-        {"period": "2014", "relation": "cooperation", "fit": best(star(3, 1))},
-        {"period": "2015", "relation": "cooperation", "fit": best(image_2015)},
+        {"period": "2013", "relation": "cooperation", "fit": clear(best(star(3, 0)))},
+        {"period": "2014", "relation": "cooperation", "fit": clear(best(star(3, 0)))},
+        {"period": "2015", "relation": "cooperation", "fit": clear(best(image_2015), 0.4)},
+        {"period": "2016", "relation": "cooperation", "fit": clear(best(np.eye(3, dtype=int)))},
     ]
     table = structures_over_time(rows, labels=TRACKS)
-    lines = describe_changes(table)
-    assert lines == [
-        "In 2013 the cooperation structure was closest to core-periphery (fit 1.00); the core is Track A.",
-        "From 2013 to 2014 the cooperation structure stayed core-periphery (fit 1.00 -> 1.00); "
-        "the core changed from Track A to Track B.",
-        "From 2014 to 2015 the cooperation structure changed from core-periphery to cohesive-subgroups "
-        "(fit 1.00 -> 0.89).",
+    assert table["significant"].tolist() == [True, True, False, True]
+    assert table["structure"].tolist() == ["core-periphery", "core-periphery", "no clear structure",
+                                           "cohesive-subgroups"]
+    # a change only between clear structures: 2014 -> 2016, not through the unclear 2015
+    assert table["changed"].tolist() == [False, False, False, True]
+    assert describe_changes(table) == [
+        "The cooperation structure is clear in 3 of 4 periods: core-periphery in 2013-2014 (core: Track A); "
+        "cohesive-subgroups in 2016.",
+        "From 2014 to 2016 the cooperation structure changed from core-periphery to cohesive-subgroups.",
+        "In 2015 the cooperation ties show no clear structure (the positions or the closest ideal are no "
+        "clearer than random ties at the 0.05 level).",
     ]
 
 
-def test_sentences_for_unchanged_centre_top_and_chance():
+def test_fit_test_q_values_veto_a_clear_ideal():
+    rows = [("2013", "aid", clear(best(star(3, 0)))), ("2014", "aid", clear(best(np.eye(3, dtype=int))))]
+    table = structures_over_time(rows, fit_q_values={"2013": 0.01, "2014": 0.3})
+    assert table["significant"].tolist() == [True, False]
+    assert table["changed"].tolist() == [False, False]  # a change needs both periods clear
+    assert table["fit_q_value"].tolist() == [0.01, 0.3]
+    lines = describe_changes(table)
+    assert lines[0] == ("Fit test: the positions are clearer than in random networks with as many ties in "
+                        "1 of 2 periods (q <= 0.05); not in 2014.")
+    assert len(lines) == 3 and "changed" not in " ".join(lines)
+
+
+def test_q_values_are_benjamini_hochberg_over_the_table():
+    from scipy.stats import false_discovery_control
+
+    p = [0.01, 0.04, 0.03]
+    rows = [(str(2010 + i), "aid", clear(best(np.eye(2, dtype=int)), v)) for i, v in enumerate(p)]
+    table = structures_over_time(rows)
+    assert np.allclose(table["q_value"], false_discovery_control(p, method="bh"))  # reference: scipy
+
+
+def test_untested_structures_are_named_as_untested():
     out_star = np.zeros((3, 3), dtype=int)
     out_star[1, :] = 1  # centralized, ties come from position 1 (definition)
-    hierarchy = np.zeros((4, 4), dtype=int)
-    hierarchy[[1, 2, 3], [0, 1, 2]] = 1  # 1->0, 2->1, 3->2: position 0 at the top
-    fit_h = replace(best(hierarchy), p_value=0.4)
-    rows = [
-        ("2013", "aid", best(out_star)),
-        ("2014", "aid", best(out_star)),
-        ("2013", "trade", best(hierarchy)),
-        ("2014", "trade", fit_h),
+    rows = [("2013", "aid", best(out_star)), ("2014", "aid", best(out_star))]
+    table = structures_over_time(rows, labels=TRACKS)
+    assert table["significant"].tolist() == [None, None]
+    assert describe_changes(table) == [
+        "Untested (no draws), the aid structure is closest to: centralized in 2013-2014 "
+        "(centre: Track B (ties come from it)).",
     ]
-    lines = describe_changes(structures_over_time(rows, labels=TRACKS))
-    assert lines == [
-        "In 2013 the aid structure was closest to centralized (fit 1.00); "
-        "the centre is Track B (ties come from it).",
-        "From 2013 to 2014 the aid structure stayed centralized (fit 1.00 -> 1.00).",
-        "In 2013 the trade structure was closest to hierarchy (fit 1.00); the top position is Track A.",
-        "From 2013 to 2014 the trade structure stayed hierarchy (fit 1.00 -> 1.00).",
-    ]
-    # the p-value appears in the opening sentence and flags chance-level structures
-    rows = [("2014", "trade", fit_h), ("2015", "trade", best(np.eye(4, dtype=int)))]
-    lines = describe_changes(structures_over_time(rows))
-    assert lines[0] == (
-        "In 2014 the trade structure was closest to hierarchy (fit 1.00, p = 0.400); "
-        "the top position is position 0; it is no clearer than random ties of the same density (p = 0.40)."
-    )
 
 
 def test_period_order_can_be_given():

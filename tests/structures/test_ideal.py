@@ -20,6 +20,7 @@ from tracker.structures.ideal import (
     IdealFit,
     classify_image,
     closest_ideal,
+    density_image,
     ideal_significance,
 )
 
@@ -264,3 +265,52 @@ def test_significance_rejects_mismatched_fit_and_draws():
         ideal_significance(np.eye(4), fit)
     with pytest.raises(UsageError):
         ideal_significance(np.eye(3), fit, draws=0)
+
+
+# ---------------------------------------------------------------- density images (judged on the ties)
+
+
+def brute_force_inconsistency(image: np.ndarray, ideal: str) -> float:
+    """Minimum of sum |density - ideal| over every ordering, core size and variant: the definition."""
+    n_pos = image.shape[0]
+    shapes = ([dict(n_core=s) for s in range(1, n_pos)] if ideal == "core-periphery"
+              else [dict(variant=v) for v in ("to-centre", "from-centre")] if ideal == "centralized" else [{}])
+    return min(float(np.abs(image[np.ix_(o, o)] - ideal_in_rank_order(ideal, n_pos, **shape)).sum())
+               for shape in shapes for o in map(np.array, itertools.permutations(range(n_pos))))
+
+
+@settings(max_examples=25, deadline=None)
+@given(st.integers(2, 5).flatmap(
+    lambda b: st.lists(st.floats(0, 1), min_size=b * b, max_size=b * b).map(lambda c: np.array(c).reshape(b, b))))
+def test_density_image_inconsistencies_equal_brute_force(image):
+    # brute force over all orderings of the definition: normalised block inconsistencies
+    # (Doreian, Batagelj & Ferligoj 2005: null block -> share of cells with a tie,
+    # complete block -> share of cells without one)
+    for fit in closest_ideal(image):
+        assert fit.mismatches == pytest.approx(brute_force_inconsistency(image, fit.ideal), abs=1e-9)
+        assert float(np.abs(image - fit.ideal_image()).sum()) == pytest.approx(fit.mismatches, abs=1e-9)
+    for fit in closest_ideal(image, exact_limit=0):
+        assert fit.mismatches >= brute_force_inconsistency(image, fit.ideal) - 1e-9
+
+
+def test_density_image_counts_normalised_block_inconsistencies():
+    # one stray tie in a null block of 80 cells costs 1/80, one missing tie in a complete
+    # 90-cell diagonal block 1/90 (relative=False: the plain normalised counts)
+    ties = np.array([[89, 1], [0, 90]])
+    possible = np.array([[90, 80], [80, 90]])
+    image = density_image(ties, possible, relative=False)
+    fit = next(f for f in closest_ideal(image) if f.ideal == "cohesive-subgroups")
+    assert fit.mismatches == pytest.approx(1 / 90 + 1 / 80)
+    assert density_image(ties, possible).max() == 1.0  # relative: the densest block counts as complete
+    with pytest.raises(UsageError):
+        density_image([[3]], [[2]])
+
+
+def test_density_image_significance_shuffles_the_blocks():
+    rng = np.random.default_rng(3)
+    image = ideal_in_rank_order("cohesive-subgroups", 5) * 0.97 + rng.random((5, 5)) * 0.03
+    fit = closest_ideal(image)[0]
+    assert fit.ideal == "cohesive-subgroups"
+    assert ideal_significance(image, fit, draws=99, seed=1) == pytest.approx(0.01)
+    flat = np.full((4, 4), 0.3)  # every block alike: nothing to find
+    assert ideal_significance(flat, closest_ideal(flat)[0], draws=19) == 1.0

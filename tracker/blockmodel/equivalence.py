@@ -270,9 +270,8 @@ def rege_similarities(
 ) -> np.ndarray:
     r"""Graded regular-equivalence similarities of valued data (REGE).
 
-    White & Reitz's REGE (1983; Wasserman & Faust 1994, sec. 12.4.3, formula
-    given here from memory of that text) starts from :math:`M^0_{ij} = 1` and
-    sets
+    White & Reitz's REGE (1983; Wasserman & Faust 1994, sec. 12.4.3) starts
+    from :math:`M^0_{ij} = 1` and sets
 
     .. math::
 
@@ -306,6 +305,15 @@ def rege_similarities(
     in the same class of :func:`maximal_regular_partition` of binary data have
     similarity exactly 1, which the classic form does not guarantee when ties
     are mutual.
+
+    Checked against the definition of regular equivalence (White & Reitz
+    1983; Borgatti & Everett 1993) by brute force in
+    ``tests/blockmodel/test_regular_definitions.py``: on binary data iterated
+    to its fixed point, :math:`M_{ij} = 1` exactly when ``i`` and ``j`` share
+    a class of the coarsest regular partition (``match="arc"``), or of the
+    coarsest regular partition of the ties typed as sent only, received only
+    or mutual (``match="pair"``), the partitions found by enumerating every
+    partition of up to 7 actors.
 
     Cost: each step compares every tie with every tie, :math:`O(E^2 F)` time
     for ``E`` ordered (actor, neighbour) pairs and ``F`` values per pair

@@ -3,9 +3,10 @@
 :func:`fit_snapshot` is the pure function the API calls once per period; it
 bundles :func:`tracker.blockmodel.positions.find_positions`,
 :func:`tracker.blockmodel.blocks.block_stats`,
-:func:`tracker.blockmodel.image.image` and
-:func:`tracker.blockmodel.goodness.permutation_test` and returns one
+:func:`tracker.blockmodel.image.image` and returns one
 :class:`PeriodFit`.  The settings of a fit are one :class:`FitSettings`.
+The fit test (refits on null-model draws, :mod:`tracker.inference.fit_test`)
+runs over all periods at once in :func:`tracker.pipeline.fitting.run_fit`.
 """
 
 from __future__ import annotations
@@ -17,7 +18,7 @@ from dataclasses import asdict, dataclass, field
 import numpy as np
 
 from tracker.blockmodel.blocks import BlockStats, block_stats
-from tracker.blockmodel.goodness import density_correlation, inconsistencies, permutation_test
+from tracker.blockmodel.goodness import density_correlation, inconsistencies
 from tracker.blockmodel.image import CRITERIA, image, perfect_fit
 from tracker.blockmodel.partition import Partition
 from tracker.blockmodel.positions import find_positions
@@ -45,7 +46,11 @@ class FitSettings:
     relations : tuple of str, optional
         Relations fitted jointly (default all).
     draws : int
-        Draws of the permutation test (0 = no test).
+        Null-model draws of the fit test, each one refit of the period
+        (0 = no test; see :mod:`tracker.inference.fit_test`).
+    null_model : str
+        ``"ties"`` (default: number of ties and tie values kept per relation)
+        or ``"degrees"`` (every actor's degrees kept).
     k_min, k_max : int
         Range of K tried by ``positions="auto"``.
     options : dict
@@ -72,13 +77,16 @@ class FitSettings:
     cut: float | None = None
     seed: int = 0
     relations: tuple[str, ...] | None = None
-    draws: int = 99
+    draws: int = 39
     k_min: int = 2
     k_max: int = 8
     options: dict = field(default_factory=dict)
     smoothing: float | str = "auto"
+    null_model: str = "ties"
 
     def __post_init__(self) -> None:
+        if self.null_model not in ("ties", "degrees"):
+            raise UsageError(f"--null takes 'ties' or 'degrees', not {self.null_model!r}")
         if isinstance(self.smoothing, str) and self.smoothing != "auto":
             raise UsageError(f"--smooth takes 'auto', 'off' or a penalty in nats (a number), not {self.smoothing!r}")
         if not isinstance(self.smoothing, str) and self.smoothing < 0:
@@ -124,6 +132,7 @@ class PeriodFit:
     draws: int
     diagnostics: dict
     confidence: np.ndarray | None = None  # per actor: posterior probability of its position, when known
+    null_model: str | None = None  # null model of the fit test, when run
 
     @property
     def image(self) -> np.ndarray:
@@ -136,9 +145,7 @@ def fit_partition(snapshot: Snapshot, partition: Partition, settings: FitSetting
     stats = block_stats(matrices, directed, partition)
     images = {c: image(stats, c, alpha=settings.alpha, cut=settings.cut) for c in CRITERIA}
     errors = inconsistencies(stats, images[settings.criterion])
-    p_value = None
-    if settings.draws and partition.n_positions > 1:
-        _, p_value, _ = permutation_test(matrices, directed, partition, draws=settings.draws, seed=settings.seed)
+    p_value = None  # the fit test runs over all periods at once (tracker.pipeline.fitting.run_fit)
     diagnostics = {k: v for k, v in partition.diagnostics.items() if k != "fit"}
     return PeriodFit(
         period=snapshot.period,
@@ -152,7 +159,7 @@ def fit_partition(snapshot: Snapshot, partition: Partition, settings: FitSetting
         density_correlation=float(density_correlation(stats)),
         perfect_fit=bool(perfect_fit(stats)),
         p_value=p_value,
-        draws=settings.draws if p_value is not None else 0,
+        draws=0,
         diagnostics=_plain(diagnostics),
     )
 

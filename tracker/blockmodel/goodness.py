@@ -7,12 +7,15 @@
   cells of all relations, between the 0/1 data and the density of the cell's
   block (Wasserman & Faust 1994, sec. 10.4.2).  It is computed from the block
   tables alone.
-* **Permutation test**: the observed statistic is compared with its values
-  after random relabellings of the actors (the partition's label vector
-  permuted among the actors), which keep the graph and the position sizes and
-  destroy any link between the two (Wasserman & Faust 1994, sec. 10.4; the
-  ``(1 + #{null >= observed}) / (draws + 1)`` p-value is standard
-  permutation-test practice, Phipson & Smyth 2010, cited from memory).
+* **Relabelling baseline** (descriptive, *not* a test of structure): the
+  statistic of a partition compared with its values after random
+  relabellings of the actors.  For a partition *fitted to these data* it
+  says almost nothing: the fit was chosen to beat relabellings, so even
+  networks drawn without any positions come out "significant" (on random
+  digraphs 88 of 100 at 0.05; ``tests/inference/test_fit_test.py``).  The
+  fit test of a fitted partition is :mod:`tracker.inference.fit_test`, which
+  refits on null-model draws.  The relabelling baseline is valid only for a
+  partition fixed *before* seeing the data (e.g. given by attributes).
 
 References
 ----------
@@ -130,9 +133,11 @@ def permutation_test(
     seed: int = 0,
     statistic: str | Callable[[BlockStats], float] = "density-correlation",
 ) -> tuple[float, float, np.ndarray]:
-    """Is the partition's fit better than that of random relabellings?
+    """Relabelling baseline: the partition's fit against random relabellings (descriptive).
 
-    Each draw permutes the label vector among the actors (same position sizes,
+    Not a test of a partition fitted to the same data (see the module
+    docstring and :mod:`tracker.inference.fit_test`); valid for a partition
+    fixed in advance.  Each draw permutes the label vector among the actors (same position sizes,
     same graph) and recomputes the statistic.  The p-value is
 
     .. math::

@@ -10,7 +10,16 @@ criteria follow Wasserman & Faust (1994, sec. 10.2):
 * ``"max-value"``: 1 if the largest value in the block reaches ``cut``
   (the valued analogue of zero-block);
 * ``"mean-value"``: 1 if the block's mean value per possible cell reaches the
-  mean of all off-diagonal values (the valued analogue of alpha density).
+  mean of all off-diagonal values (the valued analogue of alpha density);
+* ``"above-background"`` (noise-aware, for sparse data with stray ties): 1
+  only if the block holds clearly more ties than the relation's background
+  rate, its whole-network density ``d``: the one-sided binomial tail
+  :math:`P(X \\ge t)`, :math:`X \\sim \\mathrm{Bin}(p, d)`, is at most
+  ``level / L`` (``level`` = :data:`BACKGROUND_LEVEL` = 0.05 unless given,
+  ``L`` = the relation's blocks that can hold a tie: a Bonferroni bound,
+  so that a network of uniformly scattered ties gets an all-0 image with
+  probability at least 0.95).  Zero-block stays the textbook criterion
+  and the default; under it one stray tie makes a block 1.
 
 A 1 in an image asserts ties, so under every criterion a block without any
 tie is 0, and so is a block in which no tie is possible (the diagonal block of
@@ -28,12 +37,15 @@ import numpy as np
 from tracker.blockmodel.blocks import BlockStats
 from tracker.errors import UsageError
 
-__all__ = ["CRITERIA", "image", "perfect_fit"]
+__all__ = ["CRITERIA", "BACKGROUND_LEVEL", "image", "perfect_fit", "above_background"]
 
-CRITERIA = ("zero-block", "one-block", "density", "max-value", "mean-value")
+CRITERIA = ("zero-block", "one-block", "density", "max-value", "mean-value", "above-background")
+
+#: Family-wise level of the above-background criterion per relation (common practice: 5%).
+BACKGROUND_LEVEL = 0.05
 
 
-def image(stats: BlockStats, criterion: str, *, alpha=None, cut=None) -> np.ndarray:
+def image(stats: BlockStats, criterion: str, *, alpha=None, cut=None, level: float | None = None) -> np.ndarray:
     """The image matrix of a blockmodel under one criterion.
 
     Parameters
@@ -55,6 +67,9 @@ def image(stats: BlockStats, criterion: str, *, alpha=None, cut=None) -> np.ndar
         typical tie" and adapts to the scale of the data (counts of events,
         0-4 ratings, weights).  On 0/1 data it equals 1, so the criterion
         then coincides with zero-block, as it should.
+    level : float, optional
+        Family-wise level of ``"above-background"`` (default
+        :data:`BACKGROUND_LEVEL`), in ``(0, 1)``.
 
     Returns
     -------
@@ -104,9 +119,47 @@ def image(stats: BlockStats, criterion: str, *, alpha=None, cut=None) -> np.ndar
     elif criterion == "max-value":
         level = _per_relation(cut, stats.network_median_positive, n_rel, "cut")
         out = tied & (stats.maximum >= level[:, None, None])
-    else:
+    elif criterion == "mean-value":
         out = tied & (stats.mean_value >= stats.network_mean[:, None, None])
+    else:
+        out = tied & above_background(stats, BACKGROUND_LEVEL if level is None else level)
     return out.astype(np.int64)
+
+
+def above_background(stats: BlockStats, level: float = BACKGROUND_LEVEL) -> np.ndarray:
+    """Blocks whose ties clearly exceed the relation's whole-network density (see the module docstring).
+
+    Returns a boolean ``(R, B, B)`` array: the binomial upper tail
+    ``P(X >= t | p, d)`` (``scipy.stats.binom.sf(t - 1, p, d)``) is at most
+    ``level / L``, with ``L`` the relation's blocks that can hold a tie
+    (``k <= l`` for an undirected relation, whose table is symmetric).
+
+    Examples
+    --------
+    >>> import numpy as np, scipy.sparse as sp
+    >>> from tracker.blockmodel.blocks import block_stats
+    >>> from tracker.blockmodel.partition import Partition
+    >>> a = np.zeros((20, 20)); a[:10, :10] = 1; np.fill_diagonal(a, 0); a[15, 3] = 1  # one stray tie
+    >>> s = block_stats([sp.csr_array(a)], [True], Partition(np.repeat([0, 1], 10), 2))
+    >>> above_background(s)[0].astype(int).tolist(), image(s, "zero-block")[0].tolist()
+    ([[1, 0], [0, 0]], [[1, 0], [1, 0]])
+    """
+    from scipy.stats import binom
+
+    if not 0 < float(level) < 1:
+        raise UsageError(f"the above-background level must lie between 0 and 1, not {level}")
+    ties = np.asarray(stats.ties, dtype=np.float64)
+    possible = np.asarray(stats.possible, dtype=np.float64)
+    d = np.asarray(stats.network_density, dtype=np.float64)[:, None, None]
+    n_pos = stats.n_positions
+    upper = np.triu(np.ones((n_pos, n_pos), dtype=bool))
+    mask = np.stack([np.ones_like(upper) if dr else upper for dr in stats.directed]) if len(stats.directed) else \
+        np.zeros((0, n_pos, n_pos), bool)
+    live = (possible > 0) & mask
+    n_blocks = np.maximum(live.sum(axis=(1, 2)), 1)[:, None, None]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        tail = binom.sf(ties - 1, possible, np.clip(d, 0.0, 1.0))
+    return (possible > 0) & (ties > 0) & (tail <= level / n_blocks) & (ties > d * possible)
 
 
 def perfect_fit(stats: BlockStats) -> bool:

@@ -12,9 +12,12 @@ possible cells (self-ties excluded), the block types here cost
     \\delta_{regular} = (n_l - c)\\, n_k + (n_k - q)\\, c ,
 
 where ``q`` is the number of rows of the block holding at least one tie and
-``c`` the number of such columns (the regular-block deviation as given by
-Doreian, Batagelj & Ferligoj 2005, ch. 7; quoted from memory).  The criterion
-is
+``c`` the number of such columns (the regular-block deviation of Doreian,
+Batagelj & Ferligoj 2005, ch. 7).  It equals :math:`n_k n_l - q c`, the number
+of cells lying in a row or a column without any tie, and is 0 exactly when
+every row and column holds a tie (the definition of a regular block); both
+are checked by brute force in ``tests/blockmodel/test_regular_definitions.py``.
+The criterion is
 
 .. math::
 

@@ -17,7 +17,7 @@ import pandas as pd
 
 from tracker.errors import UsageError
 
-__all__ = ["run_fit", "fit_joint", "frozen_prefix", "period_selection"]
+__all__ = ["run_fit", "fit_joint", "frozen_prefix", "period_selection", "with_fit_tests", "with_q_values"]
 
 
 def run_fit(store, settings, labels: list[str], progress: Callable[[str], None] | None = None) -> list:
@@ -41,7 +41,55 @@ def run_fit(store, settings, labels: list[str], progress: Callable[[str], None] 
             results.append(fit_snapshot(snap, settings))
             if progress is not None:
                 progress(snap.period)
-    return results
+    return with_fit_tests(store, settings, results)
+
+
+def with_fit_tests(store, settings, results: list) -> list:
+    """The results with ``p_value``/``draws``/``null_model`` of the fit test (:mod:`tracker.inference.fit_test`).
+
+    Every period is refitted alone by the single-period procedure of
+    ``settings`` (method, positions or ``auto`` with its range, options,
+    seed) on the data and on ``settings.draws`` null draws; all refits of all
+    periods go to one :func:`tracker.execution.map_tasks` batch.  With
+    smoothing or a joint fit, the stored partition links periods, but the
+    test is of the period alone: whether this period's ties hold positions
+    that the same method does not find in networks without them.
+    """
+    import dataclasses
+
+    from tracker.inference.fit_test import Procedure, fit_tests, period_seed
+
+    if not settings.draws or not results:
+        return results
+    options = {k: v for k, v in settings.options.items() if k != "joint"}
+    if settings.options.get("joint"):
+        options = {k: v for k, v in options.items() if k in ("model", "degree_corrected", "restarts")}
+    procedure = Procedure(method=settings.method, positions=settings.positions, seed=settings.seed,
+                          criterion=settings.criterion, alpha=settings.alpha, cut=settings.cut,
+                          k_range=(settings.k_min, settings.k_max), options=options)
+    wanted = [r.period for r in results]
+    snaps = {s.period: s for s in store.snapshots(wanted, settings.relations)}
+    tests = fit_tests([(snaps[p].matrices, snaps[p].directed, period_seed(settings.seed, p)) for p in wanted],
+                      procedure, draws=settings.draws, null=settings.null_model)
+    out = []
+    for result, test in zip(results, tests):
+        diagnostics = {**result.diagnostics, "fit_test": test.summary()}
+        p_value = None if not np.isfinite(test.p_value) else float(test.p_value)
+        out.append(dataclasses.replace(result, p_value=p_value, draws=test.draws, null_model=test.null_model,
+                                       diagnostics=diagnostics))
+    return out
+
+
+def with_q_values(frame: pd.DataFrame) -> pd.DataFrame:
+    """A fit-period table with ``q_value``: Benjamini-Hochberg over the periods' fit-test p-values."""
+    from tracker.inference.fit_test import benjamini_hochberg
+
+    frame = frame.copy()
+    p = pd.to_numeric(frame["p_value"], errors="coerce").to_numpy(dtype=float) if len(frame) else np.zeros(0)
+    q = benjamini_hochberg(p)
+    at = list(frame.columns).index("p_value") + 1
+    frame.insert(at, "q_value", q)
+    return frame
 
 
 def fit_joint(snapshots: list, settings) -> list:

@@ -688,8 +688,9 @@ def fit_chart(
     (Wasserman & Faust 1994, sec. 10.4.2) and the count of inconsistencies with
     the image (Doreian, Batagelj & Ferligoj 2005), for each number of positions
     ``k`` tried in each period; large points mark the ``k`` that was chosen.
-    Right: the permutation p-value of each period's fit (the share of random
-    relabellings that fit at least as well); the rule is the 0.05 level.
+    Right: the fit-test p-value of each period (the share of null-model
+    networks on which the same method fits at least as well; see
+    :mod:`tracker.inference.fit_test`); the rule is the 0.05 level.
     """
     panels = []
     order = _periods(periods) if periods is not None else None
@@ -739,7 +740,7 @@ def fit_chart(
             filled=True, size=70
         ).encode(
             x=alt.X("period:N", sort=sort, title="Period", axis=alt.Axis(labelAngle=-45)),
-            y=alt.Y("p_value:Q", title="Permutation p-value", scale=alt.Scale(domain=[0, 1])),
+            y=alt.Y("p_value:Q", title="Fit-test p-value", scale=alt.Scale(domain=[0, 1])),
             color=alt.Color("verdict:N", title="Fit",
                             scale=alt.Scale(domain=["better than random", "not better than random"],
                                             range=["#0072b2", "#d55e00"])),
@@ -770,7 +771,8 @@ def structure_chart(structures: pd.DataFrame, periods: Sequence[object]) -> alt.
     One cell per period and ideal type (cohesive subgroups, core-periphery,
     centralized, hierarchy, transitive; Wasserman & Faust 1994, sec. 10.3),
     coloured by the fit reported upstream and labelled with it; a dark outline
-    marks fits whose permutation p-value is below 0.05.
+    marks clear structures (the table's ``significant``; without it, an ideal
+    p-value below 0.05).
     """
     periods = _periods(periods)
     if structures is None or len(structures) == 0:
@@ -781,7 +783,10 @@ def structure_chart(structures: pd.DataFrame, periods: Sequence[object]) -> alt.
     s["fit"] = s["fit"].astype(float)
     if "p_value" not in s:
         s["p_value"] = np.nan
-    s["significant"] = np.where(s["p_value"].astype(float) < SIGNIFICANCE, "yes", "no")
+    if "significant" in s:  # the verdict of the structures table (ideal and fit test, q-values)
+        s["significant"] = np.where(s["significant"].map(lambda v: v is True or v == True), "yes", "no")  # noqa: E712
+    else:
+        s["significant"] = np.where(s["p_value"].astype(float) < SIGNIFICANCE, "yes", "no")
     if "roles" in s:
         s["roles"] = [_text(v) for v in s["roles"]]
     cols = [c for c in ["period", "relation", "ideal", "mismatches", "fit", "p_value",

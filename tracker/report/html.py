@@ -372,12 +372,14 @@ def _chart_specs(
         ("chart-block-density", "block-density", {}, "Density between tracks over time",
          "One panel per sending track; each line is a receiving track.", ("blocks",)),
         ("chart-structure", "structure", {}, "Ideal images",
-         "How closely each period's image matches each ideal pattern; outlined cells fit "
-         "better than random relabellings (p below 0.05).", ("structures",)),
+         "How closely each period's blocks match the closest ideal pattern; outlined cells are "
+         "clear structures: the ideal fits better than its blocks rearranged at random and the "
+         "positions are clearer than in random networks (q below 0.05).", ("structures",)),
         ("chart-fit", "fit", {}, "Goodness of fit",
          "Left: fit for each number of positions tried (large points: the number chosen). "
-         "Right: the share of random relabellings that fit at least as well; below the "
-         "dashed line (0.05) the positions are unlikely to be chance.",
+         "Right: the fit test, the share of networks drawn without positions (same number of "
+         "ties) where the same method fits at least as well; below the dashed line (0.05) the "
+         "positions are unlikely to be chance.",
          ("diagnostics", "permutation")),
     ]
     out = []

@@ -60,6 +60,7 @@ class FitStore(StoreBase):
                     inconsistencies=pf.inconsistencies,
                     density_correlation=pf.density_correlation if np.isfinite(pf.density_correlation) else None,
                     perfect_fit=pf.perfect_fit, p_value=pf.p_value, draws=pf.draws,
+                    null_model=getattr(pf, "null_model", None),
                     diagnostics=json.dumps(pf.diagnostics, default=str), fitted_at=now,
                 ))
                 labels = part.labels
@@ -162,12 +163,13 @@ class FitStore(StoreBase):
             rows = conn.execute(
                 select(Period.label, FitPeriod.n_positions, FitPeriod.isolates_position, FitPeriod.inconsistencies,
                        FitPeriod.density_correlation, FitPeriod.perfect_fit, FitPeriod.p_value, FitPeriod.draws,
-                       FitPeriod.diagnostics)
+                       FitPeriod.null_model, FitPeriod.diagnostics)
                 .join(Period, Period.id == FitPeriod.period_id).where(FitPeriod.fit_id == fit_id)
                 .order_by(Period.sort_key)
             ).all()
         frame = pd.DataFrame(rows, columns=["period", "positions", "isolates_position", "inconsistencies",
-                                            "density_correlation", "perfect_fit", "p_value", "draws", "diagnostics"])
+                                            "density_correlation", "perfect_fit", "p_value", "draws", "null_model",
+                                            "diagnostics"])
         frame["diagnostics"] = [json.loads(d) if d else {} for d in frame["diagnostics"]]
         return frame
 
@@ -187,7 +189,7 @@ class FitStore(StoreBase):
     def blocks(self, fit_id: int) -> pd.DataFrame:
         """The block table of a fit (every period, relation and ordered pair of positions)."""
         image_cols = [Block.image_zero_block, Block.image_one_block, Block.image_density, Block.image_max_value,
-                      Block.image_mean_value]
+                      Block.image_mean_value, Block.image_above_background]
         with self.engine.connect() as conn:
             rows = conn.execute(
                 select(Period.label, RelationRow.name, Block.from_position, Block.to_position, Block.ties,
@@ -198,6 +200,7 @@ class FitStore(StoreBase):
             ).all()
         return pd.DataFrame(rows, columns=["period", "relation", "from_position", "to_position", "ties", "possible",
                                            "density", "mean_value", "max_value", "image", "image_zero_block",
-                                           "image_one_block", "image_density", "image_max_value", "image_mean_value"])
+                                           "image_one_block", "image_density", "image_max_value", "image_mean_value",
+                                           "image_above_background"])
 
 

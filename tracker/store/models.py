@@ -157,6 +157,7 @@ class FitPeriod(Base):
     perfect_fit: Mapped[bool] = mapped_column(Boolean)
     p_value: Mapped[float | None] = mapped_column(Float)
     draws: Mapped[int] = mapped_column(Integer)
+    null_model: Mapped[str | None] = mapped_column(String(16))  # null model of the fit test ("ties", "degrees")
     diagnostics: Mapped[str | None] = mapped_column(Text)  # JSON (per-K table for --positions auto ...)
     fitted_at: Mapped[datetime] = mapped_column(DateTime)
 
@@ -191,6 +192,7 @@ class Block(Base):
     image_density: Mapped[int] = mapped_column(Integer)
     image_max_value: Mapped[int] = mapped_column(Integer)
     image_mean_value: Mapped[int] = mapped_column(Integer)
+    image_above_background: Mapped[int | None] = mapped_column(Integer)
 
 
 class AlignmentRow(Base):

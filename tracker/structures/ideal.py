@@ -28,7 +28,27 @@ under the best ordering :math:`o` (and core set, centre, variant),
     m = \min_o \sum_{k,l} |x_{o_k o_l} - t_{kl}|, \qquad
     \mathrm{fit} = 1 - m / B^2 ,
 
-the diagonal included.  A symmetric star (all ties to and from one position) is
+the diagonal included.
+
+**Judged on the ties, not on a 0/1 image.**  The image may also be the
+matrix of *block densities* :math:`x_{kl} = t_{kl} / p_{kl} \in [0, 1]`
+(:func:`density_image`; by default relative to the densest block), and that is what :meth:`tracker.api.Study.structures`
+passes.  Then :math:`|x_{kl} - t_{kl}|` is the block's inconsistencies
+counted on the ties themselves, normalised by the block's size: the share of
+its cells holding a tie where the ideal has a null block, the share of cells
+missing a tie where it has a complete block.  This is the normalised
+null-block and complete-block inconsistency of generalized blockmodeling
+(Doreian, Batagelj & Ferligoj 2005, ch. 7: block inconsistencies divided
+by the block's number of cells so that large blocks do not dominate) [3]_.
+Why this rather than a 0/1 image: under the textbook zero-block criterion
+a single stray tie turns a block into a 1, so 2% random ties make every image
+all 1s (and "core-periphery"); on densities one stray tie in a block of 80
+cells costs 1/80.  A noise-aware 0/1 image (the ``above-background``
+criterion of :mod:`tracker.blockmodel.image`) would also survive noise, but
+it throws away how far a block is from its ideal, and its verdict on a
+small block flips with one tie; the normalised count keeps both.
+
+A symmetric star (all ties to and from one position) is
 the core-periphery image with a core of one position, so undirected data need no
 separate star.  Two ideals coincide only for ``B = 2``: hierarchy and transitive
 are then both the single tie ``1 -> 0``.
@@ -40,6 +60,11 @@ References
    core-periphery).
 .. [2] White, H. C., Boorman, S. A. & Breiger, R. L. (1976). Social structure from
    multiple networks I. Am. J. Sociology 81, 730-780.
+.. [4] Ziberna, A. (2007). Generalized blockmodeling of valued networks. Social
+   Networks 29, 105-126 (cited from memory).
+.. [3] Doreian, P., Batagelj, V. & Ferligoj, A. (2005). Generalized Blockmodeling.
+   Cambridge University Press (block types and their inconsistencies, ch. 6-7;
+   chapter numbers cited from memory).
 """
 
 from __future__ import annotations
@@ -59,6 +84,7 @@ __all__ = [
     "closest_ideal",
     "ideal_significance",
     "classify_image",
+    "density_image",
 ]
 
 #: The ideal images, in the fixed order that breaks ties between equal fits.
@@ -81,8 +107,10 @@ class IdealFit:
     ----------
     ideal : str
         One of :data:`IDEALS`.
-    mismatches : int
-        Cells where the image and the ideal differ, under the best ordering.
+    mismatches : float
+        Cells where the image and the ideal differ, under the best ordering
+        (a whole number for a 0/1 image; for a density image, the sum of the
+        blocks' normalised inconsistencies).
     fit : float
         ``1 - mismatches / B**2``.
     order : tuple of int
@@ -101,7 +129,7 @@ class IdealFit:
     """
 
     ideal: str
-    mismatches: int
+    mismatches: float
     fit: float
     order: tuple[int, ...]
     roles: dict[int, str]
@@ -185,8 +213,8 @@ def closest_ideal(
     fits = []
     for name in names:
         mism, orders, extra = _fit_stack(name, x[None], exact_limit, seed)
-        fits.append(_make_fit(name, int(mism[0]), orders[0], int(extra[0])))
-    fits.sort(key=lambda f: (f.mismatches, IDEALS.index(f.ideal)))
+        fits.append(_make_fit(name, _number(mism[0]), orders[0], int(extra[0])))
+    fits.sort(key=lambda f: (round(f.mismatches, 9), IDEALS.index(f.ideal)))
     return fits
 
 
@@ -200,8 +228,10 @@ def ideal_significance(
 ) -> float:
     r"""Monte Carlo p-value of a fit against random images of the same density.
 
-    Each of ``draws`` random images has the image's number of 1s placed uniformly
-    at random over the :math:`B^2` cells; each is fitted to ``fit.ideal`` by the
+    Each of ``draws`` random images has the image's cell values shuffled
+    uniformly at random over the :math:`B^2` cells (for a 0/1 image: its
+    number of 1s placed at random; for a density image: its block densities
+    rearranged); each is fitted to ``fit.ideal`` by the
     same search as :func:`closest_ideal` (best ordering, core set, centre and
     variant), and
 
@@ -248,13 +278,10 @@ def ideal_significance(
         raise UsageError(f"draws must be at least 1, got {draws}; use e.g. draws=199")
     draws = int(draws)
     rng = np.random.default_rng(seed)
-    n_ones = int(x.sum())
-    cells = np.argsort(rng.random((draws, n_pos * n_pos)), axis=1)[:, :n_ones]
-    random_images = np.zeros((draws, n_pos * n_pos), dtype=np.int8)
-    np.put_along_axis(random_images, cells, 1, axis=1)
-    random_images = random_images.reshape(draws, n_pos, n_pos)
+    cells = np.argsort(rng.random((draws, n_pos * n_pos)), axis=1)
+    random_images = x.reshape(-1)[cells].reshape(draws, n_pos, n_pos)
     mism = _fit_stack(fit.ideal, random_images, exact_limit, seed)[0]
-    return float((1 + np.count_nonzero(mism <= fit.mismatches)) / (draws + 1))
+    return float((1 + np.count_nonzero(mism <= fit.mismatches + 1e-9)) / (draws + 1))
 
 
 def classify_image(
@@ -294,9 +321,51 @@ def _check_image(image) -> np.ndarray:
         )
     if x.shape[0] < 2:
         raise UsageError("ideal structures need an image of at least 2 positions; fit more positions")
-    if not np.isin(x, (0, 1)).all():
-        raise UsageError("an image holds only 0s and 1s; apply an image criterion to the blocks first")
-    return x.astype(np.int8)
+    if not np.all(np.isfinite(x)) or np.any((x < 0) | (x > 1)):
+        raise UsageError("an image holds 0s and 1s, or block densities between 0 and 1; "
+                         "apply an image criterion to the blocks or pass their densities")
+    if np.isin(x, (0, 1)).all():
+        return x.astype(np.int8)
+    return x.astype(np.float64)
+
+
+def _number(value) -> float | int:
+    value = float(value)
+    return int(round(value)) if abs(value - round(value)) < 1e-9 else value
+
+
+def density_image(ties, possible, *, relative: bool = True) -> np.ndarray:
+    """Block densities ``t / p`` of one relation as an image for :func:`closest_ideal`.
+
+    With ``relative`` (default) the densities are divided by the relation's
+    largest block density, so the densest block counts as complete: the
+    normalised inconsistencies of valued generalized blockmodeling with the
+    level ``m`` of a "tie block" set to the densest block (Ziberna 2007,
+    cited from memory).  In sparse data, where no block is near complete, the
+    absolute densities would make every ideal with 1-blocks fit badly and
+    the best ideal would be the one with the fewest 1s; relative to the
+    densest block the pattern of dense and empty blocks is what is judged.
+    Noise cannot fake a pattern this way: scaling does not change which
+    arrangement of the blocks is best, and :func:`ideal_significance`
+    compares with the same values rearranged at random.
+
+    Blocks where no tie is possible (the diagonal of a one-actor position)
+    count as null (0), like in every 0/1 image.
+
+    >>> density_image([[3, 0], [1, 0]], [[6, 4], [4, 0]], relative=False).tolist()
+    [[0.5, 0.0], [0.25, 0.0]]
+    >>> density_image([[3, 0], [1, 0]], [[6, 4], [4, 0]]).tolist()
+    [[1.0, 0.0], [0.5, 0.0]]
+    """
+    t = np.asarray(ties, dtype=np.float64)
+    p = np.asarray(possible, dtype=np.float64)
+    if t.shape != p.shape or t.ndim != 2:
+        raise UsageError("ties and possible must be two (B, B) tables of the same relation")
+    if np.any(t < 0) or np.any(t > p):
+        raise UsageError("each block needs 0 <= ties <= possible")
+    dens = np.where(p > 0, t / np.where(p > 0, p, 1), 0.0)
+    top = dens.max() if dens.size else 0.0
+    return dens / top if relative and top > 0 else dens
 
 
 def _check_ideals(ideals: Sequence[str]) -> list[str]:
@@ -343,7 +412,7 @@ def _template(ideal: str, n_pos: int, n_core: int = 1, variant: str | None = Non
     raise ValueError(ideal)
 
 
-def _make_fit(ideal: str, mismatches: int, order: np.ndarray, extra: int) -> IdealFit:
+def _make_fit(ideal: str, mismatches: float, order: np.ndarray, extra: int) -> IdealFit:
     order = tuple(int(k) for k in order)
     n_pos = len(order)
     variant = None
@@ -367,11 +436,12 @@ def _fit_stack(ideal: str, images: np.ndarray, exact_limit: int, seed: int):
     the core size (core-periphery) or the variant's index (centralized).
     """
     n_img, n_pos, _ = images.shape
-    n_ones = images.reshape(n_img, -1).sum(axis=1).astype(np.int64)
+    n_ones = images.reshape(n_img, -1).sum(axis=1)
+    n_ones = n_ones.astype(np.int64) if images.dtype.kind in "iub" else n_ones.astype(np.float64)
     identity = np.broadcast_to(np.arange(n_pos), (n_img, n_pos))
     extra = np.zeros(n_img, dtype=np.int64)
     if ideal == "cohesive-subgroups":
-        trace = np.trace(images, axis1=1, axis2=2).astype(np.int64)
+        trace = np.trace(images, axis1=1, axis2=2).astype(n_ones.dtype)
         return n_ones + n_pos - 2 * trace, identity.copy(), extra
     if ideal == "centralized":
         return _centralized(images, n_ones)
@@ -390,7 +460,7 @@ def _fit_stack(ideal: str, images: np.ndarray, exact_limit: int, seed: int):
 def _centralized(images: np.ndarray, n_ones: np.ndarray):
     n_img, n_pos, _ = images.shape
     # received (column sums) for "to-centre", sent (row sums) for "from-centre"
-    sums = np.stack([images.sum(axis=1), images.sum(axis=2)], axis=1).astype(np.int64)
+    sums = np.stack([images.sum(axis=1), images.sum(axis=2)], axis=1).astype(n_ones.dtype)
     mism = n_ones[:, None, None] + n_pos - 2 * sums
     best = mism.reshape(n_img, -1).argmin(axis=1)
     variant, centre = np.divmod(best, n_pos)
@@ -405,7 +475,8 @@ def _core_masks_cost(masks: np.ndarray, flat: np.ndarray, n_ones: np.ndarray) ->
     n_pos = masks.shape[1]
     ideal = (masks[:, :, None] | masks[:, None, :]).reshape(-1, n_pos * n_pos).astype(np.float64)
     agree = ideal @ flat.T.astype(np.float64)
-    return (n_ones[None, :] + ideal.sum(axis=1)[:, None] - 2 * agree).round().astype(np.int64)
+    cost = n_ones[None, :] + ideal.sum(axis=1)[:, None] - 2 * agree
+    return cost.round().astype(np.int64) if n_ones.dtype.kind == "i" else cost
 
 
 def _core_result(masks: np.ndarray, mism: np.ndarray):
@@ -427,7 +498,7 @@ def _core_local(images: np.ndarray, n_ones: np.ndarray, seed: int):
     rng = np.random.default_rng(seed)
     flips = np.eye(n_pos, dtype=bool)
     best_masks = np.zeros((n_img, n_pos), dtype=bool)
-    best_cost = np.zeros(n_img, dtype=np.int64)
+    best_cost = np.zeros(n_img, dtype=n_ones.dtype)
     for d in range(n_img):
         flat, ones = images[d].reshape(1, -1), n_ones[d : d + 1]
         ties = images[d].sum(axis=0) + images[d].sum(axis=1)
@@ -444,7 +515,7 @@ def _core_local(images: np.ndarray, n_ones: np.ndarray, seed: int):
                     cand = ~mask[None, :]
                 cand_cost = _core_masks_cost(cand, flat, ones)[:, 0]
                 k = int(cand_cost.argmin())
-                if cand_cost[k] >= cost:
+                if cand_cost[k] >= cost - 1e-12:
                     break
                 mask, cost = cand[k], cand_cost[k]
             if found is None or cost < found_cost:
@@ -481,7 +552,8 @@ def _orders_exact(images: np.ndarray, rows: np.ndarray, cols: np.ndarray):
     """Most ideal 1s matched over all orderings, per image; first best ordering kept."""
     n_img, n_pos, _ = images.shape
     flat = images.reshape(n_img, -1).T.astype(np.float64)  # (B*B, D)
-    best = np.full(n_img, -1, dtype=np.int64)
+    exact = images.dtype.kind in "iub"
+    best = np.full(n_img, -1, dtype=np.int64 if exact else np.float64)
     best_order = np.zeros((n_img, n_pos), dtype=np.int64)
     perms = _permutations(n_pos)
     n_cells = rows.size
@@ -493,7 +565,8 @@ def _orders_exact(images: np.ndarray, rows: np.ndarray, cols: np.ndarray):
             (np.ones(cells.size), cells.ravel(), np.arange(0, cells.size + 1, n_cells)),
             shape=(len(chunk), n_pos * n_pos),
         )
-        agree = np.rint(mapping @ flat).astype(np.int64)  # (chunk, D)
+        agree = mapping @ flat  # (chunk, D)
+        agree = np.rint(agree).astype(np.int64) if exact else np.round(agree, 12)
         arg = agree.argmax(axis=0)
         val = agree[arg, np.arange(n_img)]
         better = val > best
@@ -524,7 +597,8 @@ def _orders_local(images: np.ndarray, rows: np.ndarray, cols: np.ndarray, seed: 
     n_img, n_pos, _ = images.shape
     rng = np.random.default_rng(seed)
     moves = _moves(n_pos)
-    best = np.zeros(n_img, dtype=np.int64)
+    exact = images.dtype.kind in "iub"
+    best = np.zeros(n_img, dtype=np.int64 if exact else np.float64)
     best_order = np.zeros((n_img, n_pos), dtype=np.int64)
     for d in range(n_img):
         x = images[d]
@@ -533,14 +607,14 @@ def _orders_local(images: np.ndarray, rows: np.ndarray, cols: np.ndarray, seed: 
         starts += [rng.permutation(n_pos) for _ in range(_RESTARTS - 1)]
         found, found_agree = None, -1
         for order in starts:
-            agree = int(x[order[rows], order[cols]].sum())
+            agree = x[order[rows], order[cols]].sum()
             while True:
                 cand = order[moves]
                 cand_agree = x[cand[:, rows], cand[:, cols]].sum(axis=1)
                 k = int(cand_agree.argmax())
-                if cand_agree[k] <= agree:
+                if cand_agree[k] <= agree + 1e-12:
                     break
-                order, agree = cand[k], int(cand_agree[k])
+                order, agree = cand[k], cand_agree[k]
             if agree > found_agree:
                 found, found_agree = order, agree
         best[d], best_order[d] = found_agree, found
