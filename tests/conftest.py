@@ -3,11 +3,20 @@
 from __future__ import annotations
 
 import csv
+import os
 from pathlib import Path
 
 import pytest
+from hypothesis import settings as hypothesis_settings
 
 from tests.pg import PG_ENV, BACKENDS, Databases, PgServer, pg_url
+
+# Property tests explore fresh examples on a developer's machine; under CI
+# (CI=true) they replay a fixed sequence, so a run on the same commit gives the
+# same verdict and a failure can be reproduced.
+hypothesis_settings.register_profile("ci", derandomize=True, deadline=None, print_blob=True)
+hypothesis_settings.register_profile("dev", deadline=None, print_blob=True)
+hypothesis_settings.load_profile("ci" if os.environ.get("CI") else "dev")
 
 
 @pytest.fixture(scope="session")
