@@ -360,6 +360,7 @@ class Study:
         p_value, roles, changed, cp_correlation, coreness_correlation``.
         """
         from tracker.execution import map_tasks
+        from tracker.pipeline.structures import structure_tests
         from tracker.structures.change import structures_over_time
 
         info = self.store.current_fit(fit)
@@ -384,7 +385,7 @@ class Study:
                       for rel, sub in part.groupby("relation", sort=True)]
             tasks.append((period, images, draws, seed))
         # One task per period: the ideal images' significance draws and the core-periphery restarts.
-        for found in map_tasks(_structure_tests, tasks, label="testing structures"):
+        for found in map_tasks(structure_tests, tasks, label="testing structures"):
             for period, rel, best, checks in found:
                 rows.append((period, rel, best))
                 if checks is not None:
@@ -644,39 +645,3 @@ class Study:
     def _require_alignment(self, fit_id: int) -> None:
         if self.store.track_positions(fit_id).empty:
             raise UsageError(f"fit {fit_id} is not aligned yet; run roletrail align first")
-
-
-def _structure_tests(period: str, images: list, draws: int, seed: int) -> list:
-    """Structure tests of one period: per relation, the closest ideal image and the core-periphery check.
-
-    ``images`` holds ``(relation, image, raw matrix or None)``; returns
-    ``(period, relation, best ideal fit, (discrete r, continuous r) or None)``.
-    Pure (a task of :func:`tracker.execution.map_tasks`).
-    """
-    from tracker.structures.coreperiphery import continuous_coreness, discrete_core_periphery
-    from tracker.structures.ideal import classify_image, closest_ideal
-
-    out = []
-    for rel, img, matrix in images:
-        best = (classify_image(img, draws=draws, seed=seed) if draws else closest_ideal(img, seed=seed))[0]
-        checks = None if matrix is None else _core_periphery_check(matrix, seed, discrete_core_periphery,
-                                                                     continuous_coreness)
-        out.append((period, rel, best, checks))
-    return out
-
-
-def _core_periphery_check(matrix, seed, discrete, continuous) -> tuple[float, float]:
-    """Borgatti-Everett discrete and continuous correlations, NaN where undefined (too few actors)."""
-    from tracker.errors import UsageError as _Usage
-
-    try:
-        _, r_discrete = discrete(matrix, seed=seed)
-    except _Usage:
-        r_discrete = float("nan")
-    try:
-        _, r_continuous = continuous(matrix)
-    except _Usage:
-        r_continuous = float("nan")
-    return float(r_discrete), float(r_continuous)
-
-

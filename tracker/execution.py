@@ -204,7 +204,7 @@ def _map_dask(fn: Callable, tasks: list[tuple], address: str, progress: Progress
     index = {f.key: i for i, f in enumerate(futures)}
     out = [None] * len(futures)
     try:
-        for done, future in enumerate(as_completed(futures), 1):
+        for done, future in enumerate(as_completed(futures, loop=client.loop), 1):
             out[index[future.key]] = future.result()
             if progress is not None:
                 progress(done, len(futures))
