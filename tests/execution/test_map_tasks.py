@@ -10,6 +10,9 @@ import pytest
 from tests.execution.workflow import draw, nested
 from tracker.execution import configured, current, map_tasks, overriding, task_seeds
 
+cluster = pytest.mark.skipif(not os.environ.get("ROLETRAIL_TEST_SCHEDULER"),
+                             reason="Dask run: set ROLETRAIL_TEST_SCHEDULER to a scheduler address (.ci/run starts one)")
+
 
 def test_random_tasks_identical_for_one_and_two_workers():
     tasks = [(s, 5) for s in task_seeds(42, 6)]
@@ -39,6 +42,14 @@ def test_progress_reaches_total_and_reporter_is_used():
     assert seen[-1] == ("drawing", 3, 3) and [s[1] for s in seen] == [1, 2, 3]
 
 
+def test_a_user_error_in_a_task_comes_back_as_itself():
+    from tracker.errors import UsageError
+    from tracker.ingest.periods import parse_scheme
+
+    with pytest.raises(UsageError, match="unknown period 'bogus'"):
+        map_tasks(parse_scheme, [("year",), ("bogus",)], workers=2)
+
+
 def test_overriding_keeps_what_is_not_given():
     reporter = lambda label, total: None  # noqa: E731
     with configured(workers=3, reporter=reporter):
@@ -48,10 +59,18 @@ def test_overriding_keeps_what_is_not_given():
             assert current().workers == 1 and current().reporter is reporter
 
 
-@pytest.mark.skipif(not os.environ.get("ROLETRAIL_TEST_SCHEDULER"),
-                    reason="Dask run: set ROLETRAIL_TEST_SCHEDULER to a scheduler address (.ci/run starts one)")
+@cluster
 def test_random_generators_identical_on_a_cluster():
     # Workers have roletrail and numpy, not these tests: the task is numpy's own generator constructor.
     seeds = task_seeds(42, 6)
     got = map_tasks(np.random.default_rng, [(s,) for s in seeds], scheduler=os.environ["ROLETRAIL_TEST_SCHEDULER"])
     assert all(np.array_equal(g.random(5), np.random.default_rng(s).random(5)) for g, s in zip(got, seeds))
+
+
+@cluster
+def test_a_user_error_on_a_cluster_comes_back_as_itself():
+    from tracker.errors import UsageError
+    from tracker.ingest.periods import parse_scheme
+
+    with pytest.raises(UsageError, match="unknown period 'bogus'"):
+        map_tasks(parse_scheme, [("year",), ("bogus",)], scheduler=os.environ["ROLETRAIL_TEST_SCHEDULER"])
