@@ -40,7 +40,20 @@ class Bars:
         self._progress = None
 
     def __enter__(self) -> "Bars":
-        if self.enabled:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        if self._progress is not None:
+            self._progress.stop()
+            self._progress = None
+
+    def _start(self):
+        """The live display, started with the first bar and stopped when the last one ends.
+
+        It never redirects standard output: results printed between steps go
+        where the user sent them (a file, a pipe) and never into the bars.
+        """
+        if self._progress is None:
             from rich.console import Console
             from rich.progress import (BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn,
                                        TimeRemainingColumn)
@@ -48,14 +61,18 @@ class Bars:
             self._progress = Progress(
                 TextColumn("[progress.description]{task.description}"), BarColumn(), MofNCompleteColumn(),
                 TimeElapsedColumn(), TextColumn("left"), TimeRemainingColumn(),
-                console=Console(file=self._stream), transient=True,
+                console=Console(file=self._stream), transient=True, redirect_stdout=False, redirect_stderr=False,
             )
             self._progress.start()
-        return self
+        return self._progress
 
-    def __exit__(self, *exc) -> None:
-        if self._progress is not None:
-            self._progress.stop()
+    def _finish(self, task) -> None:
+        progress = self._progress
+        if progress is None:
+            return
+        progress.remove_task(task)
+        if not progress.tasks:
+            progress.stop()
             self._progress = None
 
     def __call__(self, label: str, total: int | None = None, *, unit: str | None = None) -> Callable[[int, int], None]:
@@ -64,9 +81,9 @@ class Bars:
         ``unit="bytes"`` shows megabytes instead of counts.  The bar goes
         away once ``done`` reaches ``total``.
         """
-        progress = self._progress
-        if progress is None:
+        if not self.enabled:
             return _nothing
+        progress = self._start()
         scale = 1_000_000 if unit == "bytes" else 1
         if unit == "bytes":
             label += " (MB)"
@@ -81,7 +98,7 @@ class Bars:
             progress.update(task, completed=done // scale, total=total_now)
             if total_now is not None and done // scale >= total_now:
                 finished.append(True)
-                progress.remove_task(task)
+                self._finish(task)
 
         return update
 
