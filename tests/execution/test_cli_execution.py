@@ -95,3 +95,14 @@ def test_api_progress_callback_still_called_once_per_period(imported):
     with Study(imported, create=False, workers=2) as study:
         study.fit(positions=3, smoothing=0, draws=0, progress=seen.append)
         assert sorted(seen) == sorted(study.periods())
+
+
+def test_results_printed_while_a_bar_runs_stay_on_standard_output(capsys):
+    stream = _Terminal()
+    with Bars(stream=stream) as bars:
+        update = bars("testing structures", 2)
+        update(1, 2)
+        print("period,relation,ideal")
+        update(2, 2)
+    assert capsys.readouterr().out == "period,relation,ideal\n"
+    assert "period,relation" not in stream.getvalue() and "testing structures" in stream.getvalue()
