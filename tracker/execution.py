@@ -151,11 +151,15 @@ def map_tasks(
     progress : callable(done, total), optional
         Called as results come back.
     label : str, optional
-        What the tasks are ("null-model refits"); with a configured reporter,
-        shown as a progress bar.
+        What the tasks are ("null-model refits"); with a configured reporter
+        and no ``progress``, a batch of more than one task is shown as a
+        progress bar under this label (default: the first line of ``fn``'s
+        docstring).
     """
     tasks = [tuple(t) for t in tasks]
     total = len(tasks)
+    if total == 0:
+        return []
     ctx = current()
     if workers is None:
         workers = ctx.workers
