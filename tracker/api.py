@@ -12,6 +12,7 @@ options and prints.
 
 from __future__ import annotations
 
+import functools
 import os
 from pathlib import Path
 from typing import Callable, Sequence
@@ -36,6 +37,19 @@ __all__ = ["Study"]
 Progress = Callable[[int, int], None]
 
 
+def _computing(verb):
+    """Run ``verb`` under the study's execution settings (workers, scheduler), else the caller's."""
+
+    @functools.wraps(verb)
+    def wrapper(self, *args, **kwargs):
+        from tracker.execution import overriding
+
+        with overriding(workers=self.workers, scheduler=self.scheduler):
+            return verb(self, *args, **kwargs)
+
+    return wrapper
+
+
 class Study:
     """A study: one database of events, periods, fits and tracks.
 
@@ -48,9 +62,19 @@ class Study:
         Create the study if it does not exist (otherwise a missing SQLite file
         is an error).  Opening a study made by an older roletrail upgrades its
         schema in place, keeping its data.
+    workers : int, optional
+        Local processes for fits, refits and tests (default: every core; 1 =
+        this process only).  *How* to compute never changes *what* is
+        computed: the same seed gives the same stored results for any number.
+    scheduler : str, optional
+        Address of a Dask distributed scheduler (``tcp://host:8786``; default
+        ``$ROLETRAIL_SCHEDULER``): the same tasks run on its workers instead.
     """
 
-    def __init__(self, db: str | os.PathLike | None = None, *, create: bool = True) -> None:
+    def __init__(self, db: str | os.PathLike | None = None, *, create: bool = True,
+                 workers: int | None = None, scheduler: str | None = None) -> None:
+        self.workers = workers
+        self.scheduler = scheduler
         self.url = resolve_url(db)
         self.engine = open_engine(self.url, must_exist=not create)
         if not create and sqlite_path(self.url) is None:
@@ -198,6 +222,7 @@ class Study:
         return self.store.batches()
 
     # ------------------------------------------------------------------ fit
+    @_computing
     def fit(
         self,
         *,
@@ -319,6 +344,7 @@ class Study:
                 "relations": out, "fit_row": row}
 
     # ------------------------------------------------------------------ structures
+    @_computing
     def structures(self, *, fit: int | None = None, draws: int = 199, seed: int | None = None,
                    raw_check: bool = True, basis: str = "ties") -> pd.DataFrame:
         """The closest ideal image per period and relation, with its fit and significance.
@@ -349,16 +375,16 @@ class Study:
         """
         if basis not in ("ties", "image"):
             raise UsageError(f"basis must be 'ties' or 'image', not {basis!r}")
+        from tracker.execution import map_tasks
+        from tracker.pipeline.structures import structure_tests
         from tracker.structures.change import structures_over_time
-        from tracker.structures.coreperiphery import continuous_coreness, discrete_core_periphery
-        from tracker.structures.ideal import classify_image, closest_ideal
 
         info = self.store.current_fit(fit)
         seed = info["seed"] if seed is None else seed
         blocks = self.store.blocks(info["id"])
         fp = self.store.fit_periods(info["id"]).set_index("period")
         names = self._position_names(info["id"])
-        rows, labels, extra = [], {}, {}
+        rows, labels, extra, tasks = [], {}, {}, []
         periods = [p for p in self.periods() if p in fp.index]
         for period in periods:
             iso = fp.loc[period, "isolates_position"]
@@ -367,17 +393,20 @@ class Study:
                 part = part[(part["from_position"] != iso) & (part["to_position"] != iso)]
             kept = sorted(set(part["from_position"]))
             labels[period] = {k: names.get(period, {}).get(pos, f"P{pos}") for k, pos in enumerate(kept)}
+            if len(kept) < 2:
+                continue
             snap = self.snapshot(period) if raw_check else None
-            for rel, sub in part.groupby("relation", sort=True):
-                if len(kept) < 2:
-                    continue
-                values = "density" if basis == "ties" else "image"
-                img = sub.pivot(index="from_position", columns="to_position", values=values).loc[kept, kept].to_numpy()
-                best = (classify_image(img, draws=draws, seed=seed) if draws else closest_ideal(img, seed=seed))[0]
+            values = "density" if basis == "ties" else "image"
+            images = [(rel, sub.pivot(index="from_position", columns="to_position", values=values).loc[kept, kept].to_numpy(),
+                       None if snap is None else snap.matrix(rel))
+                      for rel, sub in part.groupby("relation", sort=True)]
+            tasks.append((period, images, draws, seed))
+        # One task per period: the ideal images' significance draws and the core-periphery restarts.
+        for found in map_tasks(structure_tests, tasks, label="testing structures"):
+            for period, rel, best, checks in found:
                 rows.append((period, rel, best))
-                if snap is not None:
-                    extra[(period, rel)] = _core_periphery_check(snap.matrix(rel), seed,
-                                                                  discrete_core_periphery, continuous_coreness)
+                if checks is not None:
+                    extra[(period, rel)] = checks
         fit_q = with_q_values(fp.reset_index()).set_index("period")["q_value"].to_dict()
         table = structures_over_time(rows, labels=labels, periods=periods, fit_q_values=fit_q)
         table["cp_correlation"] = [extra.get((p, r), (np.nan, np.nan))[0] for p, r in zip(table["period"], table["relation"])]
@@ -402,6 +431,7 @@ class Study:
         return out
 
     # ------------------------------------------------------------------ tracks and moves
+    @_computing
     def align(
         self,
         *,
@@ -532,6 +562,7 @@ class Study:
         return written
 
     # ------------------------------------------------------------------ report
+    @_computing
     def report_tables(self, fit: int | None = None, *, structure_draws: int = 199) -> tuple[dict, list[str], dict]:
         """Every table the charts and the report use, the period order, and the method's metadata.
 
@@ -633,20 +664,3 @@ class Study:
     def _require_alignment(self, fit_id: int) -> None:
         if self.store.track_positions(fit_id).empty:
             raise UsageError(f"fit {fit_id} is not aligned yet; run roletrail align first")
-
-
-def _core_periphery_check(matrix, seed, discrete, continuous) -> tuple[float, float]:
-    """Borgatti-Everett discrete and continuous correlations, NaN where undefined (too few actors)."""
-    from tracker.errors import UsageError as _Usage
-
-    try:
-        _, r_discrete = discrete(matrix, seed=seed)
-    except _Usage:
-        r_discrete = float("nan")
-    try:
-        _, r_continuous = continuous(matrix)
-    except _Usage:
-        r_continuous = float("nan")
-    return float(r_discrete), float(r_continuous)
-
-

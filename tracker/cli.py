@@ -93,20 +93,46 @@ def _emit(frame: pd.DataFrame, fmt: str, output: str | None, title: str | None =
         click.echo(f"wrote {len(frame)} rows to {output}", err=True)
 
 
+def computing(func=None, *, parallel: bool = True):
+    """The shared options of every command that computes at length, and its progress bars.
+
+    ``--workers N`` (default: every core) and ``--scheduler ADDRESS`` (a Dask
+    cluster; env ROLETRAIL_SCHEDULER) say where the command's independent
+    computations run (:func:`tracker.execution.configured`); ``--quiet``
+    turns off the progress bars, which are drawn on standard error only when
+    it is a terminal.  ``parallel=False`` gives only ``--quiet``.
+    """
+    if func is None:
+        return functools.partial(computing, parallel=parallel)
+
+    @functools.wraps(func)
+    def wrapper(*args, workers=None, scheduler=None, quiet=False, **kwargs):
+        from tracker.execution import configured, connect
+        from tracker.progress import Bars
+
+        with Bars(quiet) as bars, configured(workers, scheduler, bars) as execution:
+            if execution.scheduler:
+                connect(execution.scheduler)  # a wrong address fails now, in one line, before any work
+            return func(*args, **kwargs)
+
+    wrapper = click.option("--quiet", is_flag=True, help="Do not draw progress bars.")(wrapper)
+    if parallel:
+        wrapper = click.option("--scheduler", envvar="ROLETRAIL_SCHEDULER", default=None, metavar="ADDRESS",
+                               help="Run the computations on this Dask cluster, e.g. tcp://host:8786 "
+                                    "[env ROLETRAIL_SCHEDULER].")(wrapper)
+        wrapper = click.option("--workers", type=click.IntRange(min=1), default=None, metavar="N",
+                               help="Processes to compute with on this machine [default: every core].")(wrapper)
+    return wrapper
+
+
 def _progress_bar(label: str):
-    """A rich progress callback (bytes done, bytes total), silent when not on a terminal."""
-    from rich.progress import BarColumn, DownloadColumn, Progress, TimeRemainingColumn
+    """A progress callback (bytes done, bytes total) from the command's bars, and a context for it."""
+    import contextlib
 
-    progress = Progress(
-        "[progress.description]{task.description}", BarColumn(), DownloadColumn(), TimeRemainingColumn(),
-        transient=True, disable=not sys.stderr.isatty(),
-    )
-    task = progress.add_task(label, total=None)
+    from tracker.execution import step_progress
 
-    def update(done: int, total: int) -> None:
-        progress.update(task, completed=done, total=total)
-
-    return progress, update
+    update = step_progress(label, None, unit="bytes")
+    return contextlib.nullcontext(), (update or (lambda done, total: None))
 
 
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
@@ -149,6 +175,7 @@ def main(ctx: click.Context, db: str | None) -> None:
                    "for tabs.")
 @click.option("--replace", is_flag=True,
               help="Replace an earlier import of the same content (or of the same file name) instead of refusing it.")
+@computing(parallel=False)
 @click.pass_context
 def import_cmd(ctx, file, source, target, date_col, period, period_origin, period_column, relation_col,
                relation_name, weight, undirected, date_format, delimiter, replace):
@@ -339,6 +366,7 @@ def _split(values) -> list[str] | None:
 @click.option("--smooth", "smoothing", default="auto", show_default=True,
               help="How strongly to resist changes of position from one period to the next (change penalty, in nats): "
                    "auto, off (fit each period alone) or a number; higher means fewer, surer moves.")
+@computing
 @click.pass_context
 def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations, draws, null_model, k_range, linkage,
         measure, restarts, exact, degree_corrected, sbm_model, joint, smoothing):
@@ -346,8 +374,6 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
 
     A position is a group of actors with the same pattern of ties to the others.
     """
-    from rich.progress import Progress
-
     from tracker.errors import UsageError
 
     try:
@@ -375,16 +401,11 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
                 smoothing = float(smoothing)
             except ValueError:
                 raise UsageError(f"--smooth takes auto, off or a number, not {smoothing!r}") from None
-    study = _study(ctx)
-    selected = _split(periods)
-    total = len(selected) if selected else len(study.periods())
-    with Progress(transient=True, disable=not sys.stderr.isatty()) as bar:
-        task = bar.add_task("fitting periods", total=total)
-        result = study.fit(
-            method=method, positions=positions, criterion=criterion, alpha=alpha, cut=cut, seed=seed,
-            periods=selected, relations=_split(relations), draws=draws, k_min=k_min, k_max=k_max,
-            options=options, smoothing=smoothing, progress=lambda _p: bar.advance(task), null_model=null_model,
-        )
+    result = _study(ctx).fit(
+        method=method, positions=positions, criterion=criterion, alpha=alpha, cut=cut, seed=seed,
+        periods=_split(periods), relations=_split(relations), draws=draws, k_min=k_min, k_max=k_max,
+        options=options, smoothing=smoothing, null_model=null_model,
+    )
     click.echo(f"fit {result['fit']} ({method}, {criterion}, seed {seed}) is now current")
     _emit(result["periods"], "table", None)
 
@@ -456,6 +477,7 @@ def show(ctx, period, fit_id, relation):
                    "precise).")
 @click.option("--sentences/--no-sentences", default=True,
               help="Also print plain sentences about the changes (table format).")
+@computing
 @click.pass_context
 def structures(ctx, fmt, output, fit_id, draws, sentences):
     """For each period, the textbook structure its image is closest to, and when that changes.
@@ -498,6 +520,7 @@ def _structures_frame(table: pd.DataFrame) -> pd.DataFrame:
               help="Link every period again from scratch (track numbers and names carried over by best match).")
 @click.option("--include-isolates", is_flag=True,
               help="Count going into or out of the no-tie group (actors without ties in a period) as moves.")
+@computing
 @click.pass_context
 def align(ctx, fit_id, overlap_weight, link_threshold, split_threshold, max_gap, draws, seed, rebuild, include_isolates):
     """Link positions across periods into tracks (lasting positions); find who moved and how sure each move is."""
@@ -578,6 +601,7 @@ EXPORTS = ("memberships", "blocks", "fit-periods", "structures", "moves", "trans
               help="File to write (default: the screen, standard output).")
 @click.option("--fit", "fit_id", type=int,
               help="Which stored fit (its number in roletrail fits; default: the current one).")
+@computing
 @click.pass_context
 def export(ctx, what, fmt, output, fit_id):
     """Export results of the current fit as a table (graphml: one network file per period into folder -o)."""
@@ -614,6 +638,7 @@ def _export_frame(study, what: str, fit_id):
               help="Replace actor names with codes (A001 ...) everywhere in the report, charts included.")
 @click.option("--structure-draws", default=199, show_default=True, type=int,
               help="Random images used to test each period's structure against chance (more is slower and more precise).")
+@computing
 @click.pass_context
 def report(ctx, output, fit_id, anonymise, structure_draws):
     """Write the self-contained offline HTML report (one file; no network needed)."""
@@ -628,6 +653,7 @@ def report(ctx, output, fit_id, anonymise, structure_draws):
 @click.option("--fit", "fit_id", type=int,
               help="Which stored fit (its number in roletrail fits; default: the current one).")
 @click.option("--actor", help="trajectory: the actor shown first.")
+@computing
 @click.pass_context
 def chart(ctx, name, output, fit_id, actor):
     """Write one chart NAME (flow, matrix, trajectory, timeline, measures, block-density, fit, structure)."""
@@ -643,6 +669,7 @@ def chart(ctx, name, output, fit_id, actor):
 @click.option("--list", "list_only", is_flag=True, help="List the bundled scenarios and stop.")
 @click.option("--draws", default=10, show_default=True, type=int,
               help="Resampled copies of the data used to judge how sure each move is (bootstrap draws).")
+@computing
 def demo(scenario, out, list_only, draws):
     """Run a bundled invented scenario end to end: import, fit, align, report."""
     from tracker.demo import DEFAULT_SCENARIO, list_scenarios, run_demo

@@ -23,6 +23,7 @@ True
 
 from __future__ import annotations
 
+import atexit
 import contextlib
 import contextvars
 import os
@@ -32,12 +33,13 @@ from typing import Callable, Iterable, Iterator, Sequence
 import numpy as np
 
 __all__ = ["map_tasks", "task_seeds", "resolve_workers", "resolve_scheduler", "Progress", "Execution",
-           "configured", "current"]
+           "configured", "overriding", "current", "step_progress", "CONNECT_TIMEOUT_ENV"]
 
 Progress = Callable[[int, int], None]  # (done, total)
 Reporter = Callable[[str, int], Progress]  # (label, total) -> progress callback
 
 SCHEDULER_ENV = "ROLETRAIL_SCHEDULER"
+CONNECT_TIMEOUT_ENV = "ROLETRAIL_SCHEDULER_TIMEOUT"  # seconds to reach the scheduler and find a worker (default 10)
 _IN_TASK_ENV = "ROLETRAIL_IN_TASK"
 
 
@@ -75,6 +77,30 @@ def configured(workers: int | None = None, scheduler: str | None = None,
         yield _CURRENT.get()
     finally:
         _CURRENT.reset(token)
+
+
+@contextlib.contextmanager
+def overriding(workers: int | None = None, scheduler: str | None = None,
+               reporter: Reporter | None = None) -> Iterator[Execution]:
+    """Like :func:`configured`, but a setting left None keeps the one in force.
+
+    The API uses it: ``Study(workers=2)`` overrides, ``Study()`` inherits what
+    the command line (or an enclosing :func:`configured`) set.
+    """
+    now = _CURRENT.get()
+    with configured(now.workers if workers is None else workers, scheduler or now.scheduler,
+                    reporter or now.reporter) as execution:
+        yield execution
+
+
+def step_progress(label: str, total: int | None = None, **kwargs) -> Progress | None:
+    """A ``(done, total)`` callback from the configured reporter for a step that is no batch of tasks.
+
+    None when no reporter is configured (or inside a task), so callers write
+    ``if update: update(done, total)``.
+    """
+    reporter = current().reporter
+    return None if reporter is None else reporter(label, total, **kwargs)
 
 
 def task_seeds(seed: int, n: int) -> list[int]:
@@ -125,18 +151,22 @@ def map_tasks(
     progress : callable(done, total), optional
         Called as results come back.
     label : str, optional
-        What the tasks are ("null-model refits"); with a configured reporter,
-        shown as a progress bar.
+        What the tasks are ("null-model refits"); with a configured reporter
+        and no ``progress``, a batch of more than one task is shown as a
+        progress bar under this label (default: the first line of ``fn``'s
+        docstring).
     """
     tasks = [tuple(t) for t in tasks]
     total = len(tasks)
+    if total == 0:
+        return []
     ctx = current()
     if workers is None:
         workers = ctx.workers
     if os.environ.get(_IN_TASK_ENV):
         workers = 1
-    if progress is None and label is not None and ctx.reporter is not None and total:
-        progress = ctx.reporter(label, total)
+    if progress is None and ctx.reporter is not None and total > 1:
+        progress = ctx.reporter(label or _describe(fn), total)
     address = None if os.environ.get(_IN_TASK_ENV) else resolve_scheduler(scheduler or ctx.scheduler)
     if address is not None:
         return _map_dask(fn, tasks, address, progress)
@@ -160,20 +190,124 @@ def map_tasks(
 
 
 def _map_dask(fn: Callable, tasks: list[tuple], address: str, progress: Progress | None) -> list:
+    """Run the tasks on the Dask cluster at ``address``; results in task order.
+
+    Each task (the function and its arguments: arrays, snapshots, settings)
+    is pickled by Dask (cloudpickle) and sent to a worker; the result comes
+    back here.  Workers never see the study database: the caller stores what
+    comes back, so the study keeps one writer.
+    """
+    from tracker.errors import UsageError
+
+    client = connect(address)  # first: it explains a missing Dask in one line
+    from distributed import as_completed
+    from distributed.client import FutureCancelledError
+    from distributed.scheduler import KilledWorker
+
+    futures = [client.submit(_in_task, fn, task, pure=False) for task in tasks]
+    index = {f.key: i for i, f in enumerate(futures)}
+    out = [None] * len(futures)
     try:
-        from distributed import Client, as_completed
-    except ImportError as exc:  # pragma: no cover - depends on the install
-        raise ValueError("a Dask scheduler was given but dask.distributed is not installed; "
-                         "pip install 'roletrail[cluster]'") from exc
-    with Client(address, set_as_default=False) as client:
-        futures = [client.submit(_in_task, fn, task, pure=False) for task in tasks]
-        index = {f.key: i for i, f in enumerate(futures)}
-        out = [None] * len(futures)
-        for done, future in enumerate(as_completed(futures), 1):
+        for done, future in enumerate(as_completed(futures, loop=client.loop), 1):
             out[index[future.key]] = future.result()
             if progress is not None:
                 progress(done, len(futures))
-        return out
+    except (KilledWorker, FutureCancelledError) as exc:
+        raise UsageError(f"a worker of the Dask cluster at {address} died or was lost while computing "
+                         f"({type(exc).__name__}); check the workers' memory and logs and run again") from None
+    finally:
+        client.cancel([f for f in futures if not f.done()])
+    return out
+
+
+_CLIENTS: dict = {}
+
+
+def connect(address: str):
+    """A Dask client of the scheduler at ``address`` with at least one worker that runs this roletrail.
+
+    Made once per process and address and reused by every later batch.
+    Problems become one-line :class:`tracker.errors.UsageError` naming the
+    address and the fix: no Dask installed, scheduler unreachable (within
+    ``$ROLETRAIL_SCHEDULER_TIMEOUT`` seconds, default 10), no workers, or
+    workers without this version of roletrail.
+    """
+    from tracker.errors import UsageError
+
+    client = _CLIENTS.get(address)
+    if client is not None and client.status == "running":
+        return client
+    try:
+        from distributed import Client
+    except ImportError:  # pragma: no cover - depends on the install
+        raise UsageError(f"--scheduler {address} needs Dask distributed, which is not installed; "
+                         "pip install 'roletrail[cluster]', or leave out --scheduler to run on this machine") from None
+    timeout = float(os.environ.get(CONNECT_TIMEOUT_ENV) or 10)
+    fix = (f"start a scheduler there (dask scheduler) or correct --scheduler / ${SCHEDULER_ENV}, "
+           "or leave it out to run on this machine")
+    try:
+        client = Client(address, set_as_default=False, timeout=timeout)
+    except Exception as exc:  # noqa: BLE001 - OSError, TimeoutError, ValueError for a malformed address ...
+        reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise UsageError(f"cannot reach the Dask scheduler at {address} ({_short(reason)}); {fix}") from None
+    try:
+        try:
+            client.wait_for_workers(1, timeout=timeout)
+        except Exception:  # noqa: BLE001 - distributed raises TimeoutError or its own
+            raise UsageError(f"the Dask scheduler at {address} has no workers; start some there "
+                             f"(dask worker {address}) and try again") from None
+        _check_workers(client, address)
+    except BaseException:
+        client.close()
+        raise
+    if not _CLIENTS:
+        atexit.register(_close_clients)
+    _CLIENTS[address] = client
+    return client
+
+
+def _close_clients() -> None:
+    for client in _CLIENTS.values():
+        with contextlib.suppress(Exception):
+            client.close()
+    _CLIENTS.clear()
+
+
+def _check_workers(client, address: str) -> None:
+    """Refuse a cluster whose workers cannot import this roletrail (tasks would fail one by one)."""
+    from tracker import __version__
+    from tracker.errors import UsageError
+
+    try:
+        versions = client.run(_worker_version)
+    except Exception:  # noqa: BLE001 - an import error raised on a worker comes back as itself
+        versions = {"?": None}
+    wrong = {w: v for w, v in versions.items() if v != __version__}
+    if wrong:
+        worker, version = next(iter(wrong.items()))
+        found = "no roletrail" if version is None else f"roletrail {version}"
+        raise UsageError(f"the Dask worker {worker} of {address} has {found}; install roletrail {__version__} "
+                         "in the workers' environment (pip install 'roletrail[cluster]') and restart them")
+
+
+def _worker_version() -> str | None:
+    try:
+        from tracker import __version__
+    except ImportError:
+        return None
+    return __version__
+
+
+def _short(text: str, limit: int = 120) -> str:
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+def _describe(fn: Callable) -> str:
+    """A bar label from a task function: the first line of its docstring, else its name."""
+    doc = (getattr(fn, "__doc__", None) or "").strip().splitlines()
+    if doc and len(doc[0]) <= 60:
+        return doc[0].rstrip(".")
+    return getattr(fn, "__name__", "tasks").strip("_").replace("_", " ")
 
 
 def _in_task(fn: Callable, task: tuple):

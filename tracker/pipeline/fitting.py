@@ -21,26 +21,32 @@ __all__ = ["run_fit", "fit_joint", "frozen_prefix", "period_selection", "with_fi
 
 
 def run_fit(store, settings, labels: list[str], progress: Callable[[str], None] | None = None) -> list:
-    """Per-period results (:class:`tracker.blockmodel.fitting.PeriodFit`) of ``settings`` on periods ``labels``."""
-    from tracker.blockmodel.fitting import fit_snapshot, smoothing_applies
+    """Per-period results (:class:`tracker.blockmodel.fitting.PeriodFit`) of ``settings`` on periods ``labels``.
 
-    results = []
+    Periods fitted alone are independent tasks (:func:`tracker.execution.map_tasks`:
+    every core, or a Dask cluster); each uses the fit's own seed, so the
+    result does not depend on where or in what order they run.  ``progress``
+    is called once per fitted period; the configured reporter (the command
+    line's bar) follows the same count.
+    """
+    from tracker.blockmodel.fitting import fit_snapshot, smoothing_applies
+    from tracker.execution import map_tasks
+
+    tick = _period_ticks(labels, progress)
     if settings.options.get("joint"):
         results = fit_joint(list(store.snapshots(labels, settings.relations)), settings)
-        if progress is not None:
-            for period in labels:
-                progress(period)
+        for period in labels:
+            tick(period)
     elif smoothing_applies(settings) and len(store.period_labels()) > 1:
         from tracker.longitudinal.smoothing import smoothed_fits
 
         frozen_periods, frozen = frozen_prefix(store, settings, labels)
         snaps = list(store.snapshots(frozen_periods + labels, settings.relations))
-        results = smoothed_fits(snaps, settings, frozen=frozen, progress=progress)
+        results = smoothed_fits(snaps, settings, frozen=frozen, progress=tick)
     else:
-        for snap in store.snapshots(labels, settings.relations):
-            results.append(fit_snapshot(snap, settings))
-            if progress is not None:
-                progress(snap.period)
+        snaps = list(store.snapshots(labels, settings.relations))
+        results = map_tasks(fit_snapshot, [(snap, settings) for snap in snaps],
+                            progress=lambda done, _total: tick(snaps[done - 1].period))
     return with_fit_tests(store, settings, results)
 
 
@@ -90,6 +96,23 @@ def with_q_values(frame: pd.DataFrame) -> pd.DataFrame:
     at = list(frame.columns).index("p_value") + 1
     frame.insert(at, "q_value", q)
     return frame
+
+
+def _period_ticks(labels: list[str], progress: Callable[[str], None] | None) -> Callable[[str], None]:
+    """One callback per fitted period: the caller's ``progress`` and the configured bar."""
+    from tracker.execution import step_progress
+
+    bar = step_progress("fitting periods", len(labels))
+    count = [0]
+
+    def tick(period: str) -> None:
+        count[0] += 1
+        if bar is not None:
+            bar(min(count[0], len(labels)), len(labels))
+        if progress is not None:
+            progress(period)
+
+    return tick
 
 
 def fit_joint(snapshots: list, settings) -> list:

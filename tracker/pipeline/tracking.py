@@ -7,6 +7,8 @@ returns what the API stores.  The maths lives in :mod:`tracker.longitudinal`.
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 import pandas as pd
 
@@ -127,7 +129,6 @@ def move_confidence_of(store, info: dict, periods: list, alignment, moves: pd.Da
     """
     from tracker.blockmodel.fitting import FitSettings, smoothing_applies
     from tracker.blockmodel.partition import Partition
-    from tracker.blockmodel.positions import find_positions
     from tracker.longitudinal.confidence import move_confidence
     from tracker.longitudinal.smoothing import smoothed_refitter
 
@@ -147,13 +148,10 @@ def move_confidence_of(store, info: dict, periods: list, alignment, moves: pd.Da
             change_penalty=None if settings.smoothing == "auto" else float(settings.smoothing),
         )
     else:
-        def refit(period, matrices):
-            # The fit's own settings; the number of positions as fitted (not re-chosen by "auto").
-            pp = by_period[period]
-            k = pp.n_positions - (1 if pp.isolates is not None else 0)
-            return find_positions(matrices, directed, max(k, 1), method=settings.method, seed=settings.seed,
-                                  criterion=settings.criterion, alpha=settings.alpha, cut=settings.cut,
-                                  **settings.options).labels
+        # The fit's own settings; the number of positions as fitted (not re-chosen by "auto").
+        # A partial of a module-level function, so that refits can be sent to other processes.
+        positions = {p.period: max(p.n_positions - (1 if p.isolates is not None else 0), 1) for p in periods}
+        refit = functools.partial(_refit_period, positions, directed, settings)
 
     return move_confidence(
         moves, refit,
@@ -161,6 +159,15 @@ def move_confidence_of(store, info: dict, periods: list, alignment, moves: pd.Da
         actors={p: snaps[p].actors for p in needed}, labels={p: by_period[p].labels for p in needed},
         assignment={p: alignment.assignment[p] for p in needed}, draws=draws, seed=seed,
     )
+
+
+def _refit_period(positions: dict, directed, settings, period: str, matrices):
+    """Refit one period by the fit's method with its fitted number of positions; position labels."""
+    from tracker.blockmodel.positions import find_positions
+
+    return find_positions(matrices, directed, positions[period], method=settings.method, seed=settings.seed,
+                          criterion=settings.criterion, alpha=settings.alpha, cut=settings.cut,
+                          **settings.options).labels
 
 
 def _int(value):

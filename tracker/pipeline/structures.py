@@ -1,0 +1,50 @@
+"""Structure tests of one period, as a task that can run in another process or on a cluster.
+
+:meth:`tracker.api.Study.structures` makes one task per period (its images
+and raw ties) and runs them through :func:`tracker.execution.map_tasks`; the
+heavy parts are the random images of the ideal-structure test and the
+restarts of the core-periphery fit.  This module stays light to import (no
+database, no pandas), so worker processes start quickly.
+"""
+
+from __future__ import annotations
+
+__all__ = ["structure_tests", "core_periphery_check"]
+
+
+def structure_tests(period: str, images: list, draws: int, seed: int) -> list:
+    """Per relation of one period: the closest ideal image and the core-periphery check.
+
+    ``images`` holds ``(relation, image, raw matrix or None)``; returns
+    ``(period, relation, best ideal fit, (discrete r, continuous r) or None)``
+    in the same order.  The ideal fit is the first of
+    :func:`tracker.structures.ideal.classify_image` (with ``draws`` random
+    images for its p-value) or of :func:`~tracker.structures.ideal.closest_ideal`
+    (``draws=0``); every period uses the same ``seed``, so the answer does
+    not depend on where or in what order the periods run.
+    """
+    from tracker.structures.coreperiphery import continuous_coreness, discrete_core_periphery
+    from tracker.structures.ideal import classify_image, closest_ideal
+
+    out = []
+    for rel, img, matrix in images:
+        best = (classify_image(img, draws=draws, seed=seed) if draws else closest_ideal(img, seed=seed))[0]
+        checks = None if matrix is None else core_periphery_check(matrix, seed, discrete_core_periphery,
+                                                                    continuous_coreness)
+        out.append((period, rel, best, checks))
+    return out
+
+
+def core_periphery_check(matrix, seed, discrete, continuous) -> tuple[float, float]:
+    """Borgatti-Everett discrete and continuous correlations, NaN where undefined (too few actors)."""
+    from tracker.errors import UsageError
+
+    try:
+        _, r_discrete = discrete(matrix, seed=seed)
+    except UsageError:
+        r_discrete = float("nan")
+    try:
+        _, r_continuous = continuous(matrix)
+    except UsageError:
+        r_continuous = float("nan")
+    return float(r_discrete), float(r_continuous)
