@@ -209,10 +209,10 @@ class Study:
         periods: Sequence[str] | None = None,
         relations: Sequence[str] | None = None,
         draws: int = 99,
-        k_min: int = 2,
-        k_max: int = 8,
+        k_min: int | None = None,
+        k_max: int | None = None,
         options: dict | None = None,
-        smoothing: float | str = "auto",
+        smoothing: float | str | None = None,
         progress: Callable[[str], None] | None = None,
     ) -> dict:
         """Find positions in each period (all by default) and store the fit.
@@ -232,13 +232,20 @@ class Study:
         """
         from tracker import __version__
         from tracker.blockmodel.fitting import FitSettings, fit_snapshot, smoothing_applies
+        from tracker.blockmodel.options import check_request
 
+        k_range_given = k_min is not None or k_max is not None
+        smoothing_given = smoothing not in (None, "auto")
+        smoothing = "auto" if smoothing is None else smoothing
         settings = FitSettings(
             method=method, positions=positions, criterion=criterion, alpha=alpha, cut=cut, seed=seed,
-            relations=tuple(relations) if relations else None, draws=draws, k_min=k_min, k_max=k_max,
+            relations=tuple(relations) if relations else None, draws=draws,
+            k_min=2 if k_min is None else k_min, k_max=8 if k_max is None else k_max,
             options=dict(options or {}), smoothing=smoothing,
         )
         labels = self._period_selection(periods)
+        tied = [int(s.tied().sum()) for s in self.store.snapshots(labels, settings.relations)]
+        warnings = check_request(settings, tied=tied, smoothing_given=smoothing_given, k_range_given=k_range_given)
         results = []
         if settings.options.get("joint"):
             results = self._fit_joint(list(self.store.snapshots(labels, settings.relations)), settings)
@@ -257,7 +264,11 @@ class Study:
                 if progress is not None:
                     progress(snap.period)
         fit_id = self.store.save_fit(settings, results, __version__)
-        return {"fit": fit_id, "periods": self.store.fit_periods(fit_id).drop(columns=["diagnostics"])}
+        from tracker.views import auto_table
+
+        stored = self.store.fit_periods(fit_id)
+        return {"fit": fit_id, "periods": stored.drop(columns=["diagnostics"]), "warnings": warnings,
+                "auto": auto_table(stored[stored["period"].isin(labels)])}
 
     def _fit_joint(self, snapshots: list, settings) -> list:
         """One dynamic SBM over all periods (Matias & Miele 2017; Xu & Hero 2014).

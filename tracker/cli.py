@@ -34,6 +34,8 @@ class _Group(click.Group):
             raise
         except KeyboardInterrupt:
             _fail("interrupted; the study is unchanged", 130)
+        except BrokenPipeError:
+            _closed_pipe()
         except Exception as exc:  # noqa: BLE001 - last line of defence for the user
             if os.environ.get("ROLETRAIL_DEBUG"):
                 raise
@@ -60,6 +62,21 @@ def _known_database_problem(exc: Exception) -> str | None:
     return None
 
 
+def _closed_pipe() -> None:
+    """The reader of our output went away (``roletrail moves | head``): stop quietly, as command-line tools do.
+
+    Standard output is pointed at the null device so Python's final flush does
+    not complain; the exit status is 128 + SIGPIPE, what a shell reports for
+    a tool stopped by a closed pipe.  Whatever was saved before stays saved.
+    """
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError, AttributeError):
+        pass
+    sys.exit(141)
+
+
 def _fail(message: str, code: int) -> None:
     click.echo(f"roletrail: error: {message}", err=True)
     sys.exit(code)
@@ -80,6 +97,7 @@ def listing(func):
                   help="table for reading; csv or json for other programs.")
     @click.option("-o", "--output", type=click.Path(dir_okay=False, writable=True), default=None,
                   help="Write to this file instead of standard output.")
+    @_raw_option
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
         return func(*args, **kwargs)
@@ -87,8 +105,22 @@ def listing(func):
     return wrapper
 
 
+def _raw_option(func):
+    """``--raw``: CSV cells exactly as stored (by default formula-like text gets a leading quote)."""
+
+    def remember(ctx, _param, value):
+        ctx.meta["roletrail.raw"] = bool(value)
+        return value
+
+    return click.option("--raw", is_flag=True, expose_value=False, callback=remember,
+                        help="CSV: write cells as they are; by default text starting with = + - @ gets a "
+                             "leading ' so spreadsheets do not run it as a formula.")(func)
+
+
 def _emit(frame: pd.DataFrame, fmt: str, output: str | None, title: str | None = None) -> None:
-    write(render(frame, fmt, title=title), output)
+    ctx = click.get_current_context(silent=True)
+    raw = bool(ctx and ctx.meta.get("roletrail.raw"))
+    write(render(frame, fmt, title=title, raw=raw), output)
     if output and output != "-":
         click.echo(f"wrote {len(frame)} rows to {output}", err=True)
 
@@ -267,7 +299,7 @@ def _split(values) -> list[str] | None:
 @_periods_option
 @click.option("--relation", "relations", multiple=True, help="Fit only these relations (jointly); default all.")
 @click.option("--draws", default=99, show_default=True, type=int, help="Permutation-test draws per period (0 = no test).")
-@click.option("--k-range", default="2-8", show_default=True, help="Range of positions tried by --positions auto.")
+@click.option("--k-range", default=None, help="Range of positions tried by --positions auto [default: 2-8].")
 @click.option("--linkage", help="structural/regular: hierarchical-clustering linkage (average, complete, ward, single).")
 @click.option("--measure", type=click.Choice(["euclidean", "correlation"]), help="structural: distance measure.")
 @click.option("--restarts", type=int, help="optimize/sbm: random starts.")
@@ -275,7 +307,7 @@ def _split(values) -> list[str] | None:
 @click.option("--degree-corrected", is_flag=True, help="sbm: degree-corrected model.")
 @click.option("--model", "sbm_model", type=click.Choice(["poisson", "bernoulli"]), help="sbm: Poisson for event counts (default) or Bernoulli for binary ties.")
 @click.option("--joint", is_flag=True, help="sbm: one dynamic model over all periods (positions mean the same in every period).")
-@click.option("--smooth", "smoothing", default="auto", show_default=True,
+@click.option("--smooth", "smoothing", default=None,
               help="Penalty (nats) on changing position between consecutive periods: auto, off (each period alone) or a number.")
 @click.pass_context
 def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations, draws, k_range, linkage, measure,
@@ -285,10 +317,12 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
 
     from tracker.errors import UsageError
 
-    try:
-        k_min, k_max = (int(x) for x in k_range.split("-"))
-    except ValueError:
-        raise UsageError(f"--k-range takes MIN-MAX such as 2-8, not {k_range!r}") from None
+    k_min = k_max = None
+    if k_range is not None:
+        try:
+            k_min, k_max = (int(x) for x in k_range.split("-"))
+        except ValueError:
+            raise UsageError(f"--k-range takes MIN-MAX such as 2-8, not {k_range!r}") from None
     try:
         positions = positions if positions == "auto" else int(positions)
     except ValueError:
@@ -302,7 +336,7 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
         options["model"] = sbm_model
     if joint:
         options["joint"] = True
-    if smoothing not in ("auto",):
+    if smoothing not in (None, "auto"):
         if smoothing in ("off", "none", "no"):
             smoothing = 0.0
         else:
@@ -321,7 +355,21 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
             options=options, smoothing=smoothing, progress=lambda _p: bar.advance(task),
         )
     click.echo(f"fit {result['fit']} ({method}, {criterion}, seed {seed}) is now current")
+    for line in result.get("warnings", ()):
+        click.echo(f"warning: {line}", err=True)
     _emit(result["periods"], "table", None)
+    _echo_auto(result.get("auto"))
+
+
+def _echo_auto(table) -> None:
+    """The per-K table of --positions auto and the reason for each choice."""
+    from tracker.views import auto_reasons
+
+    if table is None or table.empty:
+        return
+    _emit(table.drop(columns=["rule"]), "table", None, title="Numbers of positions tried (--positions auto)")
+    for line in auto_reasons(table):
+        click.echo(line)
 
 
 @main.command()
@@ -329,9 +377,11 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
 @click.pass_context
 def fits(ctx, fmt, output):
     """List stored fits; the current one is used by show, export, align ..."""
-    frame = _study(ctx).fits()
+    from tracker.views import fits_table
+
+    frame = fits_table(_study(ctx).fits())
     if fmt == "table":
-        frame = frame.drop(columns=["params"])
+        frame = frame.drop(columns=["params", "created_at", "version"])
     _emit(frame, fmt, output, title="Fits")
 
 
