@@ -375,8 +375,11 @@ class Study:
         """Settings of the current (or a chosen) fit."""
         return self.store.current_fit(fit)
 
-    def memberships(self, fit: int | None = None) -> pd.DataFrame:
-        """period, actor, position (1-based), isolate, track (once aligned), confidence."""
+    def memberships(self, fit: int | None = None, *, names: bool = False) -> pd.DataFrame:
+        """period, actor, position (1-based), isolate, track (once aligned), confidence.
+
+        ``names`` adds ``track_name`` beside ``track``.
+        """
         fit_id = self.store.current_fit(fit)["id"]
         members = self.store.memberships(fit_id)
         positions = self.store.track_positions(fit_id)
@@ -384,6 +387,10 @@ class Study:
             members = members.merge(positions, on=["period", "position"], how="left")
             members["track"] = members["track"].astype("Int64")
             members = members[["period", "actor", "position", "track", "isolate", "confidence"]]
+            if names:
+                from tracker.views import name_tracks
+
+                members = name_tracks(members, _track_names(self.store.tracks(fit_id)), columns=("track",))
         return members
 
     def blocks(self, fit: int | None = None) -> pd.DataFrame:
@@ -710,18 +717,29 @@ class Study:
         """Transition counts and row shares between tracks, per step and pooled ("all")."""
         from tracker.longitudinal.movement import transitions
 
+        from tracker.views import name_tracks
+
         fit_id = self.store.current_fit(fit)["id"]
         self._require_alignment(fit_id)
         members = self.memberships(fit_id)
-        return transitions(members, self._fitted_periods(fit_id), ignore_tracks=() if include_isolates else (0,))
+        table = transitions(members, self._fitted_periods(fit_id), ignore_tracks=() if include_isolates else (0,))
+        return name_tracks(table, _track_names(self.store.tracks(fit_id)))
 
-    def trajectories(self, fit: int | None = None) -> pd.DataFrame:
-        """Each actor's track in each period (wide: one column per period), with entry and exit periods."""
+    def trajectories(self, fit: int | None = None, *, names: bool = True) -> pd.DataFrame:
+        """Each actor's track in each period (wide: one column per period), with entry and exit periods.
+
+        Cells hold the track's name (``names``, the default) or its number.
+        """
         from tracker.longitudinal.movement import trajectories
+        from tracker.views import named_trajectories
 
         fit_id = self.store.current_fit(fit)["id"]
         self._require_alignment(fit_id)
-        return trajectories(self.memberships(fit_id), self._fitted_periods(fit_id)).reset_index()
+        periods = self._fitted_periods(fit_id)
+        wide = trajectories(self.memberships(fit_id), periods)
+        if names:
+            wide = named_trajectories(wide, _track_names(self.store.tracks(fit_id)), periods)
+        return wide.reset_index()
 
     def mobility(self, fit: int | None = None) -> pd.DataFrame:
         """Per step: actors present in both periods, movers, mobility rate, entries, exits."""

@@ -361,6 +361,10 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
     _echo_auto(result.get("auto"))
 
 
+def _filled(value) -> bool:
+    return not (value is None or value == "" or (isinstance(value, float) and pd.isna(value)))
+
+
 def _echo_auto(table) -> None:
     """The per-K table of --positions auto and the reason for each choice."""
     from tracker.views import auto_reasons
@@ -382,6 +386,8 @@ def fits(ctx, fmt, output):
     frame = fits_table(_study(ctx).fits())
     if fmt == "table":
         frame = frame.drop(columns=["params", "created_at", "version"])
+        empty = [c for c in ("k_range", "alpha", "cut", "options") if not frame[c].map(_filled).any()]
+        frame = frame.drop(columns=empty)
     _emit(frame, fmt, output, title="Fits")
 
 
@@ -525,8 +531,8 @@ def transitions(ctx, fmt, output, fit_id):
     _emit(_study(ctx).transitions(fit_id), fmt, output, title="Transitions")
 
 
-EXPORTS = ("memberships", "blocks", "fit-periods", "structures", "moves", "transitions", "tracks", "mobility",
-           "trajectories", "graphml")
+EXPORTS = ("memberships", "blocks", "fit-periods", "positions-auto", "structures", "moves", "transitions", "tracks",
+           "mobility", "trajectories", "graphml")
 
 
 @main.command()
@@ -534,6 +540,7 @@ EXPORTS = ("memberships", "blocks", "fit-periods", "structures", "moves", "trans
 @click.option("--format", "fmt", type=click.Choice(["csv", "json"]), default="csv", show_default=True)
 @click.option("-o", "--output", type=click.Path(dir_okay=False), default=None, help="File to write (default: standard output).")
 @click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@_raw_option
 @click.pass_context
 def export(ctx, what, fmt, output, fit_id):
     """Export results of the current fit (graphml: one file per period into folder -o)."""
@@ -549,16 +556,18 @@ def export(ctx, what, fmt, output, fit_id):
 
 def _export_frame(study, what: str, fit_id):
     if what == "memberships":
-        return study.memberships(fit_id)
+        return study.memberships(fit_id, names=True)
+    if what == "positions-auto":
+        from tracker.views import auto_table
+
+        return auto_table(study.fit_periods(fit_id))
     if what == "blocks":
         return study.blocks(fit_id)
     if what == "structures":
         return _structures_frame(study.structures(fit=fit_id))
     if what in ("moves", "transitions", "tracks", "mobility", "trajectories"):
         return getattr(study, what)(fit_id)
-    frame = study.fit_periods(fit_id)
-    frame["diagnostics"] = [json.dumps(d) for d in frame["diagnostics"]]
-    return frame
+    return study.fit_periods(fit_id)
 
 
 @main.command()

@@ -36,8 +36,8 @@ def auto_table(fit_periods: pd.DataFrame) -> pd.DataFrame:
 
 
 def auto_reasons(table: pd.DataFrame) -> list[str]:
-    """One sentence per period: which K was chosen and why (the rule, with the numbers behind it)."""
-    out = []
+    """The rule once, then one line per period: the K chosen and the numbers behind it."""
+    out, rules = [], []
     for period, part in table.groupby("period", sort=False):
         part = part.sort_values("k")
         chosen = part[part["chosen"]]
@@ -45,19 +45,20 @@ def auto_reasons(table: pd.DataFrame) -> list[str]:
             continue
         k = int(chosen["k"].iloc[0])
         rule = chosen["rule"].iloc[0] or "the method's own rule"
-        detail = ""
+        if rule not in rules:
+            rules.append(rule)
+            out.append(f"chosen number of positions: the {rule}")
         if "icl" in part and part["icl"].notna().any():
-            detail = f" (ICL {float(chosen['icl'].iloc[0]):.1f})"
+            detail = f"ICL {float(chosen['icl'].iloc[0]):.1f}, the largest"
         else:
             rho = np.nan_to_num(part["density_correlation"].to_numpy(dtype=float), nan=0.0)
             ks = part["k"].to_numpy()
             pos = int(np.flatnonzero(ks == k)[0])
             if pos + 1 < len(ks):
-                detail = (f" (density correlation {rho[pos]:.3f} at {k}; {int(ks[pos + 1])} positions would add "
-                          f"only {rho[pos + 1] - rho[pos]:+.3f})")
+                detail = f"correlation {rho[pos]:.3f}; {int(ks[pos + 1])} would add {rho[pos + 1] - rho[pos]:+.3f}"
             else:
-                detail = f" (every step up to {k} still added enough; {k} is the largest number tried)"
-        out.append(f"period {period}: {k} positions, the {rule}{detail}")
+                detail = f"correlation {rho[pos]:.3f}; every step gained enough, {k} is the most tried"
+        out.append(f"  {period}: {k} ({detail})")
     return out
 
 
