@@ -436,8 +436,12 @@ class Study:
             out[rel] = {"density": dens, "image": img}
         row = self.store.fit_periods(info["id"])
         row = row[row["period"] == period].iloc[0].to_dict()
+        shown = part if relation is None else part[part["relation"] == relation]
         return {"period": period, "fit": info["id"], "criterion": info["criterion"], "positions": positions,
-                "relations": out, "fit_row": row}
+                "relations": out, "fit_row": row,
+                "members": {int(p): list(g["actor"]) for p, g in members.groupby("position")},
+                "names": self._position_names(info["id"]).get(period, {}),
+                "blocks": shown[["relation", "from_position", "to_position", "ties", "possible", "density", "image"]]}
 
     # ------------------------------------------------------------------ structures
     def structures(self, *, fit: int | None = None, draws: int = 199, seed: int | None = None,

@@ -404,37 +404,15 @@ def use_fit(ctx, fit_id):
 @click.argument("period")
 @click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
 @click.option("--relation", help="Only this relation.")
+@click.option("--width", type=click.IntRange(40, 400), default=None,
+              help="Wrap to this many columns (default: the terminal's width, 80 in a pipe).")
 @click.pass_context
-def show(ctx, period, fit_id, relation):
-    """Show PERIOD's density table and image side by side."""
-    from rich.console import Console
-    from rich.table import Table
-    from rich.text import Text
+def show(ctx, period, fit_id, relation, width):
+    """Show PERIOD: who is in each position, the image as a grid, and the blocks with ties."""
+    from tracker.report.console import render_period
 
     view = _study(ctx).show(period, fit=fit_id, relation=relation)
-    row = view["fit_row"]
-    console = Console(highlight=False)
-    p = "-" if row["p_value"] is None or pd.isna(row["p_value"]) else f"{row['p_value']:.3f}"
-    corr = "-" if row["density_correlation"] is None or pd.isna(row["density_correlation"]) else f"{row['density_correlation']:.3f}"
-    console.print(Text(
-        f"Period {view['period']} - fit {view['fit']}, criterion {view['criterion']}: "
-        f"{row['positions']} positions, {row['inconsistencies']:g} inconsistencies, "
-        f"density correlation {corr}, permutation p {p}" + (" (perfect fit)" if row["perfect_fit"] else "")
-    ))
-    for rel, parts in view["relations"].items():
-        dens, img = parts["density"], parts["image"]
-        table = Table(title=Text(f"{rel}: density | image"), header_style="bold")
-        table.add_column("from \\ to")
-        for col in dens.columns:
-            table.add_column(Text(str(col).split(" ")[0]), justify="right")
-        table.add_column("|")
-        for col in img.columns:
-            table.add_column(Text(str(col).split(" ")[0]), justify="center")
-        for label in dens.index:
-            cells = [Text(f"{v:.2f}") for v in dens.loc[label]]
-            marks = [Text("1" if v else ".") for v in img.loc[label]]
-            table.add_row(Text(str(label)), *cells, Text("|"), *marks)
-        console.print(table)
+    click.echo(render_period(view, width), nl=False)
 
 
 @main.command()
