@@ -753,6 +753,23 @@ class Study:
         self._require_alignment(fit_id)
         return mobility(self.memberships(fit_id), self._fitted_periods(fit_id), ignore_tracks=(0,))
 
+    def compare(self, fit_a: int, fit_b: int) -> dict:
+        """Agreement of two stored fits, period by period (see :func:`tracker.longitudinal.compare.compare_fits`).
+
+        Returns ``{"fit_a", "fit_b", "periods", "actors", "moves"}``; ``moves``
+        is None unless both fits are aligned.
+        """
+        from tracker.longitudinal.compare import compare_fits
+
+        ids = [self.store.current_fit(int(f))["id"] for f in (fit_a, fit_b)]
+        members = [self.store.memberships(f) for f in ids]
+        aligned = all(not self.store.track_positions(f).empty for f in ids)
+        moves = [self.store.moves(f) for f in ids] if aligned else [None, None]
+        out = compare_fits(members[0], members[1], moves[0], moves[1])
+        if out["periods"].empty:
+            raise UsageError(f"fits {ids[0]} and {ids[1]} have no fitted period in common; fit the same periods first")
+        return {"fit_a": ids[0], "fit_b": ids[1], **out}
+
     def export_graphml(self, folder: str | os.PathLike, *, fit: int | None = None) -> list[Path]:
         """Write each period's snapshot as GraphML (an open standard) with position and track as node attributes.
 

@@ -509,6 +509,43 @@ def transitions(ctx, fmt, output, fit_id):
     _emit(_study(ctx).transitions(fit_id), fmt, output, title="Transitions")
 
 
+@main.command()
+@click.argument("fit_a", type=int)
+@click.argument("fit_b", type=int)
+@listing
+@click.option("--part", type=click.Choice(["all", "periods", "actors", "moves"]), default="all", show_default=True,
+              help="Which table: agreement per period, actors placed differently, moves found by one fit only "
+                   "(csv takes one table).")
+@click.pass_context
+def compare(ctx, fit_a, fit_b, fmt, output, part):
+    """How far two fits agree: per period (adjusted Rand index), who is placed differently, which moves differ."""
+    from tracker.errors import UsageError
+    from tracker.output import to_json_records
+
+    result = _study(ctx).compare(fit_a, fit_b)
+    parts = ["periods", "actors", "moves"] if part == "all" else [part]
+    if fmt == "csv" and len(parts) > 1:
+        raise UsageError("CSV holds one table: add --part periods, --part actors or --part moves")
+    if "moves" in parts and result["moves"] is None:
+        if part == "moves":
+            raise UsageError(f"fits {fit_a} and {fit_b} are not both aligned; run roletrail align --fit N for each")
+        parts.remove("moves")
+    if fmt == "json" and len(parts) > 1:
+        import json as _json
+
+        payload = {"fit_a": result["fit_a"], "fit_b": result["fit_b"],
+                   **{name: to_json_records(result[name]) for name in parts}}
+        write(_json.dumps(payload, indent=2, ensure_ascii=False) + "\n", output)
+        return
+    titles = {"periods": f"Agreement of fit {fit_a} (A) and fit {fit_b} (B) per period",
+              "actors": "Actors placed differently (matched_b: the B position that corresponds to position_a)",
+              "moves": "Moves found by one fit only"}
+    for name in parts:
+        _emit(result[name], fmt, output, title=titles[name])
+    if fmt == "table" and output is None and "moves" not in parts and part == "all":
+        click.echo("moves: not compared; align both fits first (roletrail align --fit N)")
+
+
 EXPORTS = ("memberships", "blocks", "fit-periods", "positions-auto", "structures", "moves", "transitions", "tracks",
            "mobility", "trajectories", "graphml")
 
