@@ -150,13 +150,53 @@ class Study:
             file_name=table.name, content_hash=file_hash(table.path), mapping=mapping, roster=roster, replace=replace
         )
 
-    def alias(self, alias: str, actor: str) -> dict:
-        """Make ``alias`` another name of ``actor`` (merging them if both exist)."""
-        return self.store.add_alias(alias, actor)
+    def alias(self, alias: str, actor: str, *, refit: bool = False, force: bool = False) -> dict:
+        """Make ``alias`` another name of ``actor`` (merging them if both exist).
 
-    def recut(self, period: str, *, origin: int = 0) -> dict:
-        """Re-cut all dated events into other periods, without re-importing."""
-        return self.store.recut(parse_scheme(period, origin))
+        A merge changes the ties of every period the merged actor was in, so
+        fits that place it would silently go out of date: unless ``refit``
+        (fit them again with their stored settings, re-align, carry track
+        names over; see :mod:`tracker.keeping`) or ``force``, such a merge is
+        refused with a UsageError that lists what would be lost.  The result
+        gains ``refits`` (one entry per fit refitted).
+        """
+        from tracker.keeping import fit_state, loss_message, refit_from
+
+        records = []
+        known = self.store.actors()
+        names = {a.strip() for a in known["actor"]}
+        if alias.strip() in names and actor.strip() in names and alias.strip() != actor.strip():
+            records = [r for r in fit_state(self) if (r.members["actor"] == alias.strip()).any()]
+            message = loss_message(records, f"merging {alias.strip()!r} into {actor.strip()!r}", actor=alias.strip())
+            if message and not (refit or force):
+                raise UsageError(message)
+        result = self.store.add_alias(alias, actor)
+        result["refits"] = []
+        if refit and result["merged"] and records:
+            result["refits"] = refit_from(self, records, actor_map={alias.strip(): actor.strip()}, same_fits=True)
+        return result
+
+    def recut(self, period: str, *, origin: int = 0, refit: bool = False, force: bool = False) -> dict:
+        """Re-cut all dated events into other periods, without re-importing.
+
+        Stored fits belong to the old periods.  When there are any, the re-cut
+        is refused with a UsageError listing what would be lost, unless
+        ``refit`` (every fit is fitted again on the new periods with its
+        stored settings, aligned again when it was, and its track names carried
+        over by overlap in time; see :mod:`tracker.keeping`) or ``force``
+        (drop them).  The result gains ``refits``.
+        """
+        from tracker.keeping import fit_state, loss_message, refit_from
+
+        scheme = parse_scheme(period, origin)
+        records = fit_state(self)
+        message = loss_message(records, "re-cutting the periods")
+        if message and not (refit or force):
+            raise UsageError(message)
+        old_periods = self.store.periods()
+        result = self.store.recut(scheme)
+        result["refits"] = refit_from(self, records, old_periods=old_periods) if refit and records else []
+        return result
 
     # ------------------------------------------------------------------ read
     def periods(self) -> list[str]:

@@ -253,27 +253,50 @@ def check(ctx, repair, all_fits):
     sys.exit(1)
 
 
+def _keep_options(func):
+    """--refit / --force of the commands that change the data under stored fits."""
+    func = click.option("--force", is_flag=True, help="Go ahead and drop the fits, alignments and track names "
+                        "the change makes out of date.")(func)
+    return click.option("--refit", is_flag=True, help="Fit every affected fit again with its stored settings, "
+                        "align it again and carry its track names over.")(func)
+
+
+def _echo_refits(refits) -> None:
+    for entry in refits:
+        if entry["error"]:
+            click.echo(f"fit {entry['old']} could not be fitted again ({entry['error']}); it is gone")
+            continue
+        names = ", ".join(f"{n!r} -> track {t}" for t, n in sorted(entry["names"].items()))
+        click.echo(f"fit {entry['old']} fitted again as fit {entry['new']}" + (f"; names carried: {names}" if names else ""))
+        if entry["lost"]:
+            click.echo(f"  names with no matching track: {', '.join(map(repr, entry['lost']))}")
+
+
 @main.command()
 @click.argument("other_name")
 @click.argument("actor")
+@_keep_options
 @click.pass_context
-def alias(ctx, other_name, actor):
+def alias(ctx, other_name, actor, refit, force):
     """Record OTHER_NAME as another name of ACTOR (merging them if both have events)."""
-    result = _study(ctx).alias(other_name, actor)
+    result = _study(ctx).alias(other_name, actor, refit=refit, force=force)
     if result["merged"]:
         click.echo(f"merged {other_name!r} into {actor!r}: {result['events_moved']} events moved, ties rebuilt")
     else:
         click.echo(f"{other_name!r} now names {actor!r}")
+    _echo_refits(result["refits"])
 
 
 @main.command()
 @click.option("--period", required=True, help="New cut: year, quarter, month or Ny.")
 @click.option("--period-origin", default=0, type=int, help="First year of some N-year window.")
+@_keep_options
 @click.pass_context
-def recut(ctx, period, period_origin):
+def recut(ctx, period, period_origin, refit, force):
     """Re-cut every dated event into new periods (no re-import needed)."""
-    result = _study(ctx).recut(period, origin=period_origin)
+    result = _study(ctx).recut(period, origin=period_origin, refit=refit, force=force)
     click.echo(f"re-cut {result['events']} events into {result['periods']} periods by {result['scheme']}")
+    _echo_refits(result["refits"])
 
 
 def _periods_option(func):
