@@ -916,22 +916,47 @@ class Study:
         return tables, periods, meta
 
     def report(self, path: str | os.PathLike, *, fit: int | None = None, anonymise: bool = False,
-               structure_draws: int = 199) -> Path:
-        """Write the self-contained offline HTML report; returns its path."""
+               structure_draws: int = 199, key: str | os.PathLike | None = None) -> Path:
+        """Write the self-contained offline HTML report; returns its path.
+
+        ``anonymise`` replaces actor labels by codes and the study's file name
+        in the title by "Anonymised study" (a file name often names the
+        partnership); ``key`` then writes the code -> label table as CSV to a
+        separate file for the analyst (keep it apart from the report).
+        """
         from tracker.report.html import build_report
 
+        if key is not None and not anonymise:
+            raise UsageError("--key writes the codes of an anonymised report; add --anonymise")
         tables, periods, meta = self.report_tables(fit, structure_draws=structure_draws)
+        if anonymise:
+            meta = {**meta, "study": "Anonymised study"}
         html = build_report(tables, periods, meta, anonymise=anonymise)
         path = Path(path)
         path.write_text(html, encoding="utf-8")
+        if key is not None:
+            from tracker.output import render
+            from tracker.report.anonymise import anonymise_tables
+
+            codes = anonymise_tables(tables)[1]  # the same tables and seed give build_report's codes
+            frame = pd.DataFrame(sorted((c, label) for label, c in codes.items()), columns=["code", "actor"])
+            Path(key).write_text(render(frame, "csv"), encoding="utf-8")
         return path
 
     def chart(self, name: str, path: str | os.PathLike, *, fit: int | None = None, **options) -> Path:
         """Write one chart as PNG, SVG or Vega-Lite JSON (by the file's suffix)."""
+        import inspect
+
         from tracker.report.charts import CHARTS, make_chart, save_chart
 
         if name not in CHARTS:
             raise UsageError(f"unknown chart {name!r}; use one of: {', '.join(CHARTS)}")
+        accepted = inspect.signature(CHARTS[name]).parameters
+        for option in options:
+            if option not in accepted:
+                takers = sorted(n for n, f in CHARTS.items() if option in inspect.signature(f).parameters)
+                raise UsageError(f"--{option.replace('_', '-')} does not apply to chart {name}"
+                                 + (f"; only {', '.join(takers)} take(s) it" if takers else ""))
         tables, periods, _ = self.report_tables(fit, structure_draws=0 if name != "structure" else 99)
         chart = make_chart(name, tables, periods, **options)
         path = Path(path)

@@ -615,11 +615,13 @@ def _export_frame(study, what: str, fit_id):
 @click.option("--anonymise", is_flag=True, help="Replace actor labels with codes (A001 ...) everywhere.")
 @click.option("--structure-draws", default=199, show_default=True, type=int,
               help="Random images for the significance of ideal structures.")
+@click.option("--key", type=click.Path(dir_okay=False), default=None,
+              help="With --anonymise: also write the code -> actor table (CSV) to this separate file.")
 @click.pass_context
-def report(ctx, output, fit_id, anonymise, structure_draws):
+def report(ctx, output, fit_id, anonymise, structure_draws, key):
     """Write the self-contained offline HTML report (one file; no network needed)."""
-    path = _study(ctx).report(output, fit=fit_id, anonymise=anonymise, structure_draws=structure_draws)
-    click.echo(f"wrote {path}")
+    path = _study(ctx).report(output, fit=fit_id, anonymise=anonymise, structure_draws=structure_draws, key=key)
+    click.echo(f"wrote {path}" + (f" and the key to its codes to {key} (keep it apart from the report)" if key else ""))
 
 
 @main.command()
