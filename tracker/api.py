@@ -955,8 +955,10 @@ class Study:
         for option in options:
             if option not in accepted:
                 takers = sorted(n for n, f in CHARTS.items() if option in inspect.signature(f).parameters)
+                from tracker.blockmodel.options import _only
+
                 raise UsageError(f"--{option.replace('_', '-')} does not apply to chart {name}"
-                                 + (f"; only {', '.join(takers)} take(s) it" if takers else ""))
+                                 + (f"; {_only(takers)}" if takers else ""))
         tables, periods, _ = self.report_tables(fit, structure_draws=0 if name != "structure" else 99)
         chart = make_chart(name, tables, periods, **options)
         path = Path(path)

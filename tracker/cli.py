@@ -576,12 +576,17 @@ EXPORTS = ("memberships", "blocks", "fit-periods", "positions-auto", "structures
 @main.command()
 @click.argument("what", type=click.Choice(EXPORTS))
 @click.option("--format", "fmt", type=click.Choice(["csv", "json"]), default="csv", show_default=True)
-@click.option("-o", "--output", type=click.Path(dir_okay=False), default=None, help="File to write (default: standard output).")
+@click.option("-o", "--output", type=click.Path(), default=None,
+              help="File to write (default: standard output); for graphml a folder.")
 @click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
 @_raw_option
 @click.pass_context
 def export(ctx, what, fmt, output, fit_id):
     """Export results of the current fit (graphml: one file per period into folder -o)."""
+    from tracker.errors import UsageError
+
+    if what != "graphml" and output and os.path.isdir(output):
+        raise UsageError(f"-o {output} is a folder; give a file name for the {what} export")
     study = _study(ctx)
     if what == "graphml":
         folder = output or "graphml"

@@ -33,11 +33,11 @@ def _csv_ready(frame: pd.DataFrame, raw: bool) -> pd.DataFrame:
     """Nested cells as JSON text (CSV cannot nest) and, unless ``raw``, formula-like text neutralised."""
     out = frame.copy()
     for col in out.columns:
-        if out[col].dtype != object:
+        if pd.api.types.is_numeric_dtype(out[col]) or pd.api.types.is_bool_dtype(out[col]):
             continue
         values = [json.dumps(v, ensure_ascii=False, default=str) if isinstance(v, (dict, list)) else v
                   for v in out[col]]
-        out[col] = values if raw else [neutralise(v) for v in values]
+        out[col] = pd.Series(values if raw else [neutralise(v) for v in values], index=out.index, dtype=object)
     if not raw:
         out.columns = [neutralise(str(c)) for c in out.columns]
     return out

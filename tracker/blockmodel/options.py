@@ -86,6 +86,13 @@ def _table() -> Mapping[str, Mapping[str, Option]]:
     return METHOD_OPTIONS
 
 
+def _only(takers: list[str]) -> str:
+    """'only sbm takes it' / 'only optimize and sbm take it'."""
+    if len(takers) == 1:
+        return f"only {takers[0]} takes it"
+    return f"only {', '.join(takers[:-1])} and {takers[-1]} take it"
+
+
 def method_flags() -> dict[str, set[str]]:
     """Flag -> the methods that accept it (for help texts and tests)."""
     out: dict[str, set[str]] = {}
@@ -121,7 +128,7 @@ def check_options(method: str, options: Mapping[str, Any]) -> dict:
             takers = sorted(m for m, s in table.items() if name in s)
             flag = next((s[name].shown for s in table.values() if name in s), name)
             if takers:
-                raise UsageError(f"{flag} does not apply to method {method}; only {', '.join(takers)} take(s) it")
+                raise UsageError(f"{flag} does not apply to method {method}; {_only(takers)}")
             known = ", ".join(o.shown for o in spec.values()) or "none"
             raise UsageError(f"unknown option {name!r} for method {method}; it takes: {known}")
         out[name] = spec[name].check(value, method)
@@ -148,7 +155,8 @@ def check_request(
     Refusals (UsageError): ``--k-range`` without ``--positions auto``;
     ``--exact`` with a fixed number of positions (the exact regular partition
     finds its own number); ``--alpha`` without ``--criterion density`` and
-    ``--cut`` without ``--criterion max-value``; ``--smooth`` with a method it
+    ``--cut`` without ``--criterion max-value``; ``--linkage ward`` with
+    ``--measure correlation``; ``--smooth`` with a method it
     does not apply to; ``--degree-corrected`` with the Bernoulli model; more
     positions than half the tied actors of the largest period (each
     position would hold one or two actors, a "perfect fit" by construction).
@@ -166,6 +174,8 @@ def check_request(
         raise UsageError("--alpha is the threshold of --criterion density; add --criterion density or drop --alpha")
     if settings.cut is not None and settings.criterion != "max-value":
         raise UsageError("--cut is the threshold of --criterion max-value; add --criterion max-value or drop --cut")
+    if opts.get("linkage") == "ward" and opts.get("measure") == "correlation":
+        raise UsageError("--linkage ward needs Euclidean distances; use --measure euclidean or another --linkage")
     if opts.get("degree_corrected") and opts.get("model") == "bernoulli":
         raise UsageError("--degree-corrected works with the Poisson model only; drop --model bernoulli or --degree-corrected")
     if smoothing_given and settings.smoothing != 0:
