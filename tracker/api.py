@@ -566,8 +566,14 @@ class Study:
         seed: int | None = None,
         rebuild: bool = False,
         include_isolates: bool = False,
+        names_from: int | None = None,
     ) -> dict:
         """Link every period's positions to persistent tracks, find moves and their confidence.
+
+        ``names_from`` (another aligned fit) gives this fit's tracks the names
+        of that fit's tracks they overlap most (same actors in the same
+        periods; :func:`tracker.longitudinal.carry.carry_names`); names this
+        fit already has are kept.
 
         Periods aligned before keep their tracks exactly (new periods are
         aligned after them) unless ``rebuild``; track names are kept by track
@@ -616,9 +622,30 @@ class Study:
                                    for a, f, t in zip(moves["actor"], moves["from_period"], moves["to_period"])]
         elif draws and len(moves):
             moves["confidence"] = self._move_confidence(info, periods, alignment, moves, draws, seed)
+        if names_from is not None:
+            source = self.store.current_fit(int(names_from))["id"]
+            self._require_alignment(source)
         self.store.save_alignment(fit_id, params, alignment, moves)
+        carried = {}
+        if names_from is not None:
+            carried = self._carry_names_from(source, fit_id)
         return {"fit": fit_id, "tracks": self.tracks(fit_id), "moves": self.store.moves(fit_id),
-                "periods": len(order), "new_periods": len(order) - done}
+                "periods": len(order), "new_periods": len(order) - done, "names_carried": carried}
+
+    def _carry_names_from(self, source: int, fit_id: int) -> dict:
+        """Names of ``source``'s tracks given to ``fit_id``'s best-overlapping tracks (its own names kept)."""
+        from tracker.longitudinal.carry import carry_names
+
+        tracks = self.store.tracks(source)
+        names = {int(t): n for t, n in zip(tracks["track"], tracks["name"]) if isinstance(n, str) and n}
+        mine = self.store.tracks(fit_id)
+        own = {int(t): n for t, n in zip(mine["track"], mine["name"]) if isinstance(n, str) and n}
+        periods = self.store.periods()
+        carried, _ = carry_names(self.memberships(source), self.memberships(fit_id),
+                                 {t: n for t, n in names.items() if n not in own.values()}, periods, periods)
+        carried = {t: n for t, n in carried.items() if t not in own}
+        self.store.set_track_names(fit_id, {**own, **carried})
+        return carried
 
     def _aligned_inputs(self, fit_id: int) -> list:
         from tracker.longitudinal.align import PeriodPositions

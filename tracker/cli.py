@@ -469,13 +469,19 @@ def _structures_frame(table: pd.DataFrame) -> pd.DataFrame:
 @click.option("--seed", type=int, help="Seed of the bootstrap (default: the fit's seed).")
 @click.option("--rebuild", is_flag=True, help="Align every period again (track ids and names carried over by best match).")
 @click.option("--include-isolates", is_flag=True, help="Count moves into and out of the no-tie track as moves.")
+@click.option("--names-from", type=int, default=None, metavar="FIT",
+              help="Give the tracks the names of another aligned fit's tracks they overlap most.")
 @click.pass_context
-def align(ctx, fit_id, overlap_weight, link_threshold, split_threshold, max_gap, draws, seed, rebuild, include_isolates):
+def align(ctx, fit_id, overlap_weight, link_threshold, split_threshold, max_gap, draws, seed, rebuild, include_isolates,
+          names_from):
     """Link positions across periods into tracks; find moves and their confidence."""
     result = _study(ctx).align(
         fit=fit_id, weight_overlap=overlap_weight, link_threshold=link_threshold, split_threshold=split_threshold,
         max_gap=max_gap, draws=draws, seed=seed, rebuild=rebuild, include_isolates=include_isolates,
+        names_from=names_from,
     )
+    for track, name in sorted(result.get("names_carried", {}).items()):
+        click.echo(f"track {track} takes the name {name!r} from fit {names_from}")
     moves = result["moves"]
     low = int((moves["confidence"] < 0.5).sum()) if len(moves) else 0
     click.echo(

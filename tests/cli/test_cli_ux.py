@@ -410,3 +410,19 @@ def test_every_listing_and_export_in_every_format(moving):
     assert _invoke(db, "structures", "--draws", "0", "--format", "json").exit_code == 0
     with Study(db) as study:
         assert len(study.moves()) >= 1
+
+
+def test_align_names_from_another_fit(moving):
+    db, _ = moving
+    _run(db, "fit", "--positions", "2", "--draws", "0")
+    _run(db, "align", "--draws", "0")
+    with Study(db) as study:
+        core = int(study.memberships().set_index(["period", "actor"]).loc[("2016", "agency 00"), "track"])
+    _run(db, "name-track", str(core), "core")
+    _run(db, "fit", "--positions", "2", "--draws", "0", "--method", "concor", "--smooth", "off")
+    out = _run(db, "align", "--draws", "0", "--names-from", "1")
+    assert "'core'" in out
+    with Study(db) as study:
+        members = study.memberships(2, names=True)
+        core_rows = members[members["actor"].isin([f"agency {i:02d}" for i in range(5)])]
+        assert (core_rows["track_name"] == "core").all()  # the five core agencies in every period
