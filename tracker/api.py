@@ -307,8 +307,11 @@ class Study:
         from tracker.views import auto_table
 
         stored = self.store.fit_periods(fit_id)
-        return {"fit": fit_id, "periods": stored.drop(columns=["diagnostics"]), "warnings": warnings,
-                "auto": auto_table(stored[stored["period"].isin(labels)])}
+        auto = auto_table(stored[stored["period"].isin(labels)])
+        if settings.positions == "auto" and auto.empty:
+            warnings.append("the number of positions was chosen once for all periods together (smoothed fit); "
+                            "its per-K table is not kept: fit with --smooth off to see each period's table")
+        return {"fit": fit_id, "periods": stored.drop(columns=["diagnostics"]), "warnings": warnings, "auto": auto}
 
     def _fit_joint(self, snapshots: list, settings) -> list:
         """One dynamic SBM over all periods (Matias & Miele 2017; Xu & Hero 2014).

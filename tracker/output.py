@@ -77,6 +77,7 @@ def render(frame: pd.DataFrame, fmt: str, *, title: str | None = None, digits: i
         _csv_ready(frame, raw).to_csv(buffer, index=False, lineterminator="\n")
         return buffer.getvalue()
     if fmt == "json":
+        frame = _nested(frame)
         return json.dumps(to_json_records(frame), indent=2, ensure_ascii=False, default=str) + "\n"
     return _table(frame, title, digits)
 
@@ -116,6 +117,21 @@ def _plain_table(frame: pd.DataFrame, title: str | None, digits: int) -> str:
 
     out = ([title] if title else []) + [line(header), "  ".join("-" * w for w in widths)] + [line(r) for r in cells]
     return "\n".join(out) + "\n"
+
+
+#: Columns the store keeps as JSON text; a JSON listing nests them as objects instead of quoting them.
+JSON_COLUMNS = ("diagnostics", "params", "mapping", "attributes")
+
+
+def _nested(frame: pd.DataFrame) -> pd.DataFrame:
+    """JSON text in :data:`JSON_COLUMNS` turned back into objects, so JSON output nests instead of quoting."""
+    columns = [c for c in JSON_COLUMNS if c in frame.columns]
+    if not columns:
+        return frame
+    out = frame.copy()
+    for col in columns:
+        out[col] = [json.loads(v) if isinstance(v, str) and v[:1] in "{[" else v for v in out[col]]
+    return out
 
 
 def _whole_column(column: pd.Series) -> bool:

@@ -11,7 +11,7 @@ import json
 import numpy as np
 import pandas as pd
 
-__all__ = ["auto_table", "auto_reasons", "fits_table", "name_tracks", "named_trajectories", "nested"]
+__all__ = ["auto_table", "auto_reasons", "fits_table", "name_tracks", "named_trajectories"]
 
 
 def auto_table(fit_periods: pd.DataFrame) -> pd.DataFrame:
@@ -114,13 +114,4 @@ def named_trajectories(wide: pd.DataFrame, names: dict, periods) -> pd.DataFrame
     for period in periods:
         if period in out.columns:
             out[period] = [None if pd.isna(t) else names.get(int(t), f"T{int(t)}") for t in out[period]]
-    return out
-
-
-def nested(frame: pd.DataFrame, columns=("diagnostics", "params")) -> pd.DataFrame:
-    """JSON text in ``columns`` turned back into objects, so a JSON export nests instead of quoting."""
-    out = frame.copy()
-    for col in columns:
-        if col in out.columns:
-            out[col] = [json.loads(v) if isinstance(v, str) and v[:1] in "{[" else v for v in out[col]]
     return out
