@@ -162,18 +162,22 @@ class Study:
         """
         from tracker.keeping import fit_state, loss_message, refit_from
 
-        records = []
         known = self.store.actors()
-        names = {a.strip() for a in known["actor"]}
-        if alias.strip() in names and actor.strip() in names and alias.strip() != actor.strip():
-            records = [r for r in fit_state(self) if (r.members["actor"] == alias.strip()).any()]
-            message = loss_message(records, f"merging {alias.strip()!r} into {actor.strip()!r}", actor=alias.strip())
+        label_of = {}
+        for label, others in zip(known["actor"], known["aliases"]):
+            label_of[label] = label
+            label_of.update({o: label for o in str(others or "").split("; ") if o})
+        merged, kept = label_of.get(alias.strip()), label_of.get(actor.strip())
+        records = []
+        if merged is not None and kept is not None and merged != kept:
+            records = [r for r in fit_state(self) if (r.members["actor"] == merged).any()]
+            message = loss_message(records, f"merging {merged!r} into {kept!r}", actor=merged)
             if message and not (refit or force):
                 raise UsageError(message)
         result = self.store.add_alias(alias, actor)
         result["refits"] = []
         if refit and result["merged"] and records:
-            result["refits"] = refit_from(self, records, actor_map={alias.strip(): actor.strip()}, same_fits=True)
+            result["refits"] = refit_from(self, records, actor_map={merged: kept}, same_fits=True)
         return result
 
     def recut(self, period: str, *, origin: int = 0, refit: bool = False, force: bool = False) -> dict:
