@@ -184,6 +184,8 @@ def check_request(
                              "likelihood to penalise); drop --smooth or use --smooth off")
         if opts.get("joint"):
             raise UsageError("--joint already links periods through its Markov chain; drop --smooth")
+    if settings.method == "sbm" and not opts.get("joint") and ({"max_iter", "tol"} & set(opts)):
+        raise UsageError("max_iter and tol control the joint model; add joint=True (--joint) or drop them")
     if opts.get("joint") and auto:
         raise UsageError("--joint needs a fixed number of positions (--positions K)")
     warnings = []

@@ -125,6 +125,9 @@ def _method_options() -> dict:
             "restarts": restarts,
             "max_sweeps": sweeps,
             "joint": Option("joint", bool, "--joint"),
+            # the joint (dynamic) model's own iteration controls (tracker.blockmodel.sbm_dynamic)
+            "max_iter": Option("max_iter", int, "max_iter", low=1),
+            "tol": Option("tol", float, "tol", low=1e-15),
         },
     }
 
