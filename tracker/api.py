@@ -12,7 +12,6 @@ options and prints.
 
 from __future__ import annotations
 
-import json
 import os
 from pathlib import Path
 from typing import Callable, Sequence
@@ -26,6 +25,8 @@ from tracker.ingest.periods import PeriodScheme, parse_scheme
 from tracker.ingest.reader import file_hash, open_table
 from tracker.ingest.roster import validate_roster
 from tracker.measures import network_measures
+from tracker.pipeline.fitting import period_selection
+from tracker.pipeline.tracking import track_names
 from tracker.snapshot import Snapshot
 from tracker.store.database import open_engine, resolve_url, sqlite_path, upgrade
 from tracker.store.repository import ImportReport, Store
@@ -275,8 +276,9 @@ class Study:
         kept as they are and the new ones continue from them.
         """
         from tracker import __version__
-        from tracker.blockmodel.fitting import FitSettings, fit_snapshot, smoothing_applies
+        from tracker.blockmodel.fitting import FitSettings
         from tracker.blockmodel.options import check_request
+        from tracker.pipeline.fitting import run_fit
 
         k_range_given = k_min is not None or k_max is not None
         smoothing_given = smoothing not in (None, "auto")
@@ -287,26 +289,10 @@ class Study:
             k_min=2 if k_min is None else k_min, k_max=8 if k_max is None else k_max,
             options=dict(options or {}), smoothing=smoothing,
         )
-        labels = self._period_selection(periods)
+        labels = period_selection(self.store, periods)
         tied = [int(s.tied().sum()) for s in self.store.snapshots(labels, settings.relations)]
         warnings = check_request(settings, tied=tied, smoothing_given=smoothing_given, k_range_given=k_range_given)
-        results = []
-        if settings.options.get("joint"):
-            results = self._fit_joint(list(self.store.snapshots(labels, settings.relations)), settings)
-            if progress is not None:
-                for period in labels:
-                    progress(period)
-        elif smoothing_applies(settings) and len(self.periods()) > 1:
-            from tracker.longitudinal.smoothing import smoothed_fits
-
-            frozen_periods, frozen = self._frozen_prefix(settings, labels)
-            snaps = list(self.store.snapshots(frozen_periods + labels, settings.relations))
-            results = smoothed_fits(snaps, settings, frozen=frozen, progress=progress)
-        else:
-            for snap in self.store.snapshots(labels, settings.relations):
-                results.append(fit_snapshot(snap, settings))
-                if progress is not None:
-                    progress(snap.period)
+        results = run_fit(self.store, settings, labels, progress)
         fit_id = self.store.save_fit(settings, results, __version__)
         from tracker.views import auto_table
 
@@ -316,99 +302,6 @@ class Study:
             warnings.append("the number of positions was chosen once for all periods together (smoothed fit); "
                             "its per-K table is not kept: fit with --smooth off to see each period's table")
         return {"fit": fit_id, "periods": stored.drop(columns=["diagnostics"]), "warnings": warnings, "auto": auto}
-
-    def _fit_joint(self, snapshots: list, settings) -> list:
-        """One dynamic SBM over all periods (Matias & Miele 2017; Xu & Hero 2014).
-
-        Position k means the same in every period (block parameters are shared),
-        so position numbers are kept as fitted rather than re-ordered by size, and
-        each actor's membership carries its posterior probability.  Only actors
-        with ties in a period enter the model there; the period's tieless actors
-        take the isolates' position as with every method.
-        """
-        import dataclasses
-
-        from tracker.blockmodel.fitting import fit_partition
-        from tracker.blockmodel.partition import Partition
-        from tracker.blockmodel.sbm_dynamic import DynamicSBM
-
-        if settings.method != "sbm":
-            raise UsageError("a joint fit over all periods is a dynamic SBM: use --method sbm with --joint")
-        if settings.positions == "auto":
-            raise UsageError("--joint needs a fixed number of positions (--positions K)")
-        if not isinstance(settings.smoothing, str) and settings.smoothing > 0:
-            raise UsageError("--joint already links periods through its Markov chain; drop --smooth")
-        k = int(settings.positions)
-        opts = {key: value for key, value in settings.options.items()
-                if key in ("model", "degree_corrected", "restarts", "max_iter", "tol")}
-        data, tied_index = [], []
-        for snap in snapshots:
-            idx = np.flatnonzero(snap.tied())
-            tied_index.append(idx)
-            data.append(([snap.actors[i] for i in idx], [m[idx][:, idx] for m in snap.matrices], snap.directed))
-        model = DynamicSBM(k, seed=settings.seed, **opts).fit(data)
-        results = []
-        for t, snap in enumerate(snapshots):
-            idx = tied_index[t]
-            has_isolates = idx.size < snap.n
-            labels = np.full(snap.n, k, dtype=np.int64)
-            confidence = np.full(snap.n, np.nan)
-            if idx.size:
-                labels[idx] = model.labels_[t]
-                confidence[idx] = model.posteriors_[t].max(axis=1)
-            diagnostics = {"method": "sbm", "joint": True, "criterion": settings.criterion,
-                           "elbo": float(model.elbo_), "transition": np.round(model.transition_, 4).tolist()}
-            part = Partition(labels, k + (1 if has_isolates else 0), k if has_isolates else None, diagnostics)
-            results.append(dataclasses.replace(fit_partition(snap, part, settings), confidence=confidence))
-        return results
-
-    def _frozen_prefix(self, settings, labels: list[str]) -> tuple[list[str], list]:
-        """Stored periods of the same fit that come before ``labels``, as partitions to keep.
-
-        Only when every study period before the first requested one is stored;
-        otherwise those periods are simply refitted with the rest.
-        """
-        from tracker.blockmodel.partition import Partition
-
-        known = self.periods()
-        before = known[: known.index(labels[0])]
-        if not before:
-            return [], []
-        fits = self.store.fits()
-        same = [int(f) for f, p in zip(fits["fit"], fits["params"]) if json.loads(p) == settings.as_dict()]
-        if not same:
-            labels[:0] = [p for p in before if p not in labels]
-            return [], []
-        fit_id = same[-1]
-        fp = self.store.fit_periods(fit_id).set_index("period")
-        if not all(p in fp.index for p in before):
-            labels[:0] = [p for p in before if p not in labels]
-            return [], []
-        members = self.store.memberships(fit_id)
-        frozen = []
-        for period in before:
-            part = members[members["period"] == period]
-            snap_actors = self.store.snapshot(period, settings.relations).actors
-            if tuple(part["actor"]) != tuple(snap_actors):
-                labels[:0] = [p for p in before if p not in labels]
-                return [], []
-            iso = fp.loc[period, "isolates_position"]
-            frozen.append(Partition(part["position"].to_numpy() - 1, int(fp.loc[period, "positions"]),
-                                    None if iso is None or pd.isna(iso) else int(iso) - 1))
-        return before, frozen
-
-    def _period_selection(self, periods: Sequence[str] | None) -> list[str]:
-        known = self.periods()
-        if not known:
-            raise UsageError("this study has no periods yet; import events first (roletrail import FILE ...)")
-        if not periods:
-            return known
-        wanted = [str(p) for p in periods]
-        missing = [p for p in wanted if p not in known]
-        if missing:
-            shown = ", ".join(known[:8]) + (" ..." if len(known) > 8 else "")
-            raise UsageError(f"no period {missing[0]!r} in this study; the periods are {shown}")
-        return [p for p in known if p in wanted]
 
     def fits(self) -> pd.DataFrame:
         """Every stored fit with its settings; ``current`` marks the one other verbs use."""
@@ -437,7 +330,7 @@ class Study:
             if names:
                 from tracker.views import name_tracks
 
-                members = name_tracks(members, _track_names(self.store.tracks(fit_id)), columns=("track",))
+                members = name_tracks(members, track_names(self.store.tracks(fit_id)), columns=("track",))
         return members
 
     def blocks(self, fit: int | None = None) -> pd.DataFrame:
@@ -460,7 +353,7 @@ class Study:
         part = blocks[blocks["period"] == period]
         if part.empty:
             if period not in self.periods():
-                self._period_selection([period])
+                period_selection(self.store, [period])
             raise UsageError(f"fit {info['id']} has no result for period {period}; run roletrail fit --periods {period}")
         members = self.store.memberships(info["id"])
         members = members[members["period"] == period]
@@ -554,7 +447,7 @@ class Study:
         positions = self.store.track_positions(fit_id)
         if positions.empty:
             return {}
-        names = _track_names(self.store.tracks(fit_id))
+        names = track_names(self.store.tracks(fit_id))
         out: dict = {}
         for period, position, track in positions.itertuples(index=False):
             out.setdefault(period, {})[int(position)] = names.get(int(track), f"T{track}")
@@ -594,8 +487,7 @@ class Study:
 
         Returns ``{"fit", "tracks", "moves", "periods", "new_periods"}``.
         """
-        from tracker.longitudinal.align import align as align_positions
-        from tracker.longitudinal.movement import moves as find_moves
+        from tracker.pipeline.tracking import align_fit
 
         info = self.store.current_fit(fit)
         fit_id = info["id"]
@@ -603,35 +495,10 @@ class Study:
         params = {"weight_overlap": weight_overlap, "link_threshold": link_threshold,
                   "split_threshold": split_threshold, "max_gap": max_gap, "draws": draws, "seed": seed,
                   "include_isolates": include_isolates}
-        periods = self._aligned_inputs(fit_id)
-        if not periods:
-            raise UsageError(f"fit {fit_id} has no fitted periods; run roletrail fit first")
-        joint = bool(info["params"].get("options", {}).get("joint"))
-        previous = None if rebuild or joint else self._stored_alignment(fit_id, [p.period for p in periods])
-        done = 0 if previous is None else len(previous.periods)
-        if joint:
-            alignment = _identity_alignment(periods)
-        else:
-            alignment = align_positions(periods, previous=previous, weight_overlap=weight_overlap,
-                                        link_threshold=link_threshold, split_threshold=split_threshold, max_gap=max_gap)
-        if rebuild and not joint:
-            alignment = _carry_track_ids(alignment, periods, self.store.track_positions(fit_id), self.store.memberships(fit_id))
-        members = _memberships_with_tracks(periods, alignment)
-        order = [p.period for p in periods]
-        moves = find_moves(members, order, ignore_tracks=() if include_isolates else (0,))
-        moves = moves[["actor", "from_period", "to_period", "from_track", "to_track"]].copy()
-        moves["confidence"] = np.nan
-        if joint and len(moves):
-            # Posterior of leaving track a and being in track b: the product of the two
-            # marginal posteriors (the chain's pairwise posterior is not stored).
-            conf = self.store.memberships(fit_id).set_index(["period", "actor"])["confidence"]
-            moves["confidence"] = [conf.get((f, a), np.nan) * conf.get((t, a), np.nan)
-                                   for a, f, t in zip(moves["actor"], moves["from_period"], moves["to_period"])]
-        elif draws and len(moves):
-            moves["confidence"] = self._move_confidence(info, periods, alignment, moves, draws, seed)
         if names_from is not None:
             source = self.store.current_fit(int(names_from))["id"]
             self._require_alignment(source)
+        alignment, moves, order, done = align_fit(self.store, info, params, rebuild=rebuild)
         self.store.save_alignment(fit_id, params, alignment, moves)
         carried = {}
         if names_from is not None:
@@ -653,112 +520,6 @@ class Study:
         carried = {t: n for t, n in carried.items() if t not in own}
         self.store.set_track_names(fit_id, {**own, **carried})
         return carried
-
-    def _aligned_inputs(self, fit_id: int) -> list:
-        from tracker.longitudinal.align import PeriodPositions
-
-        members = self.store.memberships(fit_id)
-        blocks = self.store.blocks(fit_id)
-        fp = self.store.fit_periods(fit_id).set_index("period")
-        out = []
-        for period in [p for p in self.periods() if p in fp.index]:
-            part = members[members["period"] == period]
-            n_pos = int(fp.loc[period, "positions"])
-            iso = fp.loc[period, "isolates_position"]
-            iso = None if iso is None or pd.isna(iso) else int(iso) - 1
-            b = blocks[blocks["period"] == period]
-            rels = sorted(b["relation"].unique())
-            density = np.zeros((len(rels), n_pos, n_pos))
-            for r, rel in enumerate(rels):
-                sub = b[b["relation"] == rel]
-                density[r, sub["from_position"].to_numpy() - 1, sub["to_position"].to_numpy() - 1] = sub["density"].to_numpy()
-            out.append(PeriodPositions(period, tuple(part["actor"]), part["position"].to_numpy() - 1, n_pos, iso, density))
-        return out
-
-    def _stored_alignment(self, fit_id: int, periods: list[str]):
-        """The stored alignment of the longest prefix of ``periods`` that is still aligned, or None."""
-        from tracker.longitudinal.align import Alignment, Link, TrackInfo
-
-        positions = self.store.track_positions(fit_id)
-        if positions.empty:
-            return None
-        aligned = set(positions["period"])
-        prefix = []
-        for p in periods:
-            if p not in aligned:
-                break
-            prefix.append(p)
-        if not prefix:
-            return None
-        inside = set(prefix)
-        positions = positions[positions["period"].isin(inside)]
-        assignment = {p: positions.loc[positions["period"] == p].sort_values("position")["track"].to_numpy(dtype=np.int64)
-                      for p in prefix}
-        rank = {p: i for i, p in enumerate(prefix)}
-        tracks = {}
-        for row in self.store.tracks(fit_id).itertuples(index=False):
-            seen = [p for p in prefix if row.track in assignment[p]]
-            if not seen:
-                continue
-            ended = row.ended if row.ended in inside else None
-            tracks[int(row.track)] = TrackInfo(
-                int(row.track), seen[0], seen[-1], None if pd.isna(row.parent) else int(row.parent),
-                None if ended is None or pd.isna(row.merged_into) else int(row.merged_into), ended, bool(row.isolates),
-            )
-        links = []
-        for l in self.store.track_links(fit_id).itertuples(index=False):
-            if (l.to_period is not None and l.to_period not in inside) or (l.from_period is not None and l.from_period not in inside):
-                continue
-            links.append(Link(l.from_period, l.to_period, _int(l.from_track), _int(l.to_track),
-                              None if _int(l.from_position) is None else _int(l.from_position) - 1,
-                              None if _int(l.to_position) is None else _int(l.to_position) - 1,
-                              _float(l.similarity), _float(l.overlap), _float(l.role_similarity), l.kind))
-        links.sort(key=lambda l: rank.get(l.to_period or l.from_period, 0))
-        return Alignment(tuple(prefix), dict(sorted(tracks.items())), assignment, links)
-
-    def _move_confidence(self, info: dict, periods: list, alignment, moves: pd.DataFrame, draws: int, seed: int):
-        """Bootstrap confidence of each move, refitting with the fit's own procedure.
-
-        A smoothed fit is refitted under the smoothed model with the other
-        periods held as fitted (:func:`tracker.longitudinal.smoothing.smoothed_refitter`);
-        a per-period fit by its method alone.
-        """
-        from tracker.blockmodel.fitting import FitSettings, smoothing_applies
-        from tracker.blockmodel.partition import Partition
-        from tracker.blockmodel.positions import find_positions
-        from tracker.longitudinal.confidence import move_confidence
-        from tracker.longitudinal.smoothing import smoothed_refitter
-
-        params = info["params"]
-        settings = FitSettings(**{**params, "relations": tuple(params["relations"]) if params.get("relations") else None})
-        by_period = {p.period: p for p in periods}
-        smoothed = smoothing_applies(settings) and len(periods) > 1
-        needed = [p.period for p in periods] if smoothed else sorted(set(moves["from_period"]) | set(moves["to_period"]))
-        snaps = {s.period: s for s in self.store.snapshots(needed, settings.relations)}
-        directed = next(iter(snaps.values())).directed
-        if smoothed:
-            n_ordinary = max(p.n_positions - (p.isolates is not None) for p in periods)
-            refit = smoothed_refitter(
-                [snaps[p.period].matrices for p in periods], directed, [p.actors for p in periods],
-                [p.period for p in periods],
-                [Partition(p.labels, p.n_positions, p.isolates) for p in periods], n_ordinary,
-                change_penalty=None if settings.smoothing == "auto" else float(settings.smoothing),
-            )
-        else:
-            def refit(period, matrices):
-                # The fit's own settings; the number of positions as fitted (not re-chosen by "auto").
-                pp = by_period[period]
-                k = pp.n_positions - (1 if pp.isolates is not None else 0)
-                return find_positions(matrices, directed, max(k, 1), method=settings.method, seed=settings.seed,
-                                      criterion=settings.criterion, alpha=settings.alpha, cut=settings.cut,
-                                      **settings.options).labels
-
-        return move_confidence(
-            moves, refit,
-            matrices={p: snaps[p].matrices for p in needed}, directed=directed,
-            actors={p: snaps[p].actors for p in needed}, labels={p: by_period[p].labels for p in needed},
-            assignment={p: alignment.assignment[p] for p in needed}, draws=draws, seed=seed,
-        )
 
     def tracks(self, fit: int | None = None) -> pd.DataFrame:
         """Tracks of the current (or a chosen) fit: id, name, first and last period, parent, merges, size."""
@@ -786,7 +547,7 @@ class Study:
         fit_id = self.store.current_fit(fit)["id"]
         self._require_alignment(fit_id)
         moves = self.store.moves(fit_id)
-        names = _track_names(self.store.tracks(fit_id))
+        names = track_names(self.store.tracks(fit_id))
         moves["from_name"] = moves["from_track"].map(names)
         moves["to_name"] = moves["to_track"].map(names)
         return moves
@@ -801,7 +562,7 @@ class Study:
         self._require_alignment(fit_id)
         members = self.memberships(fit_id)
         table = transitions(members, self._fitted_periods(fit_id), ignore_tracks=() if include_isolates else (0,))
-        return name_tracks(table, _track_names(self.store.tracks(fit_id)))
+        return name_tracks(table, track_names(self.store.tracks(fit_id)))
 
     def trajectories(self, fit: int | None = None, *, names: bool = True) -> pd.DataFrame:
         """Each actor's track in each period (wide: one column per period), with entry and exit periods.
@@ -816,7 +577,7 @@ class Study:
         periods = self._fitted_periods(fit_id)
         wide = trajectories(self.memberships(fit_id), periods)
         if names:
-            wide = named_trajectories(wide, _track_names(self.store.tracks(fit_id)), periods)
+            wide = named_trajectories(wide, track_names(self.store.tracks(fit_id)), periods)
         return wide.reset_index()
 
     def mobility(self, fit: int | None = None) -> pd.DataFrame:
@@ -908,7 +669,7 @@ class Study:
             pos = positions.rename(columns={"position": "to_position", "track": "to_track"})
             blocks = blocks.merge(pos, on=["period", "to_position"], how="left")
             tracks = self.tracks(fit_id)
-            names = _track_names(tracks)
+            names = track_names(tracks)
             tracks["kind"] = ["split" if not pd.isna(p) else "birth" for p in tracks["parent"]]
             tracks["parent"] = [names.get(int(p), f"T{int(p)}") if not pd.isna(p) else "" for p in tracks["parent"]]
             tables["tracks"] = tracks
@@ -1022,84 +783,3 @@ def _core_periphery_check(matrix, seed, discrete, continuous) -> tuple[float, fl
     return float(r_discrete), float(r_continuous)
 
 
-def _int(value):
-    return None if value is None or pd.isna(value) else int(value)
-
-
-def _float(value):
-    return float("nan") if value is None or pd.isna(value) else float(value)
-
-
-def _track_names(tracks: pd.DataFrame) -> dict[int, str]:
-    """track id -> display name (the user's name, "no ties" for track 0, else T<id>)."""
-    return {
-        int(t): (n if isinstance(n, str) and n else ("no ties" if iso else f"T{t}"))
-        for t, n, iso in zip(tracks["track"], tracks["name"], tracks["isolates"])
-    }
-
-
-def _identity_alignment(periods):
-    """Tracks of a joint fit: position k is track k + 1 in every period; isolates track 0."""
-    from tracker.longitudinal.align import Alignment, Link, TrackInfo
-
-    assignment, seen = {}, {}
-    for pp in periods:
-        sizes = np.bincount(pp.labels, minlength=pp.n_positions)
-        track = np.where(sizes > 0, np.arange(pp.n_positions) + 1, -1)
-        if pp.isolates is not None:
-            track[pp.isolates] = 0 if sizes[pp.isolates] else -1
-        assignment[pp.period] = track.astype(np.int64)
-        for t in track[track >= 0]:
-            seen.setdefault(int(t), []).append(pp.period)
-    tracks = {t: TrackInfo(t, ps[0], ps[-1], isolates=(t == 0)) for t, ps in sorted(seen.items())}
-    links = []
-    for a, b in zip(periods, periods[1:]):
-        common = set(assignment[a.period][assignment[a.period] > 0]) & set(assignment[b.period][assignment[b.period] > 0])
-        for t in sorted(common):
-            links.append(Link(a.period, b.period, int(t), int(t), int(np.flatnonzero(assignment[a.period] == t)[0]),
-                              int(np.flatnonzero(assignment[b.period] == t)[0]), 1.0, float("nan"), float("nan"), "continue"))
-    return Alignment(tuple(p.period for p in periods), tracks, assignment, links)
-
-
-def _memberships_with_tracks(periods, alignment) -> pd.DataFrame:
-    from tracker.longitudinal.align import memberships
-
-    return memberships(periods, alignment)
-
-
-def _carry_track_ids(alignment, periods, old_positions: pd.DataFrame, old_members: pd.DataFrame):
-    """After a rebuild, give new tracks the ids (and so the names) of the old tracks they match best.
-
-    Matching: maximum-weight one-to-one matching (Hungarian method) on the
-    number of (period, actor) memberships two tracks share.
-    """
-    import dataclasses
-
-    from tracker.longitudinal.align import Alignment, max_weight_matching
-
-    if old_positions.empty:
-        return alignment
-    old = old_members.merge(old_positions, on=["period", "position"])
-    new = _memberships_with_tracks(periods, alignment)
-    both = old.merge(new, on=["period", "actor"], suffixes=("_old", "_new"))
-    both = both[(both["track_old"] > 0) & (both["track_new"] > 0)]
-    if both.empty:
-        return alignment
-    table = both.groupby(["track_new", "track_old"]).size().unstack(fill_value=0)
-    rows, cols = max_weight_matching(table.to_numpy())
-    mapping = {int(table.index[r]): int(table.columns[c]) for r, c in zip(rows, cols) if table.to_numpy()[r, c] > 0}
-    used = set(mapping.values())
-    spare = (i for i in range(1, 10**9) if i not in used)
-    for t in sorted(alignment.tracks):
-        if t > 0 and t not in mapping:
-            mapping[t] = next(spare)
-    mapping[0] = 0
-    remap = np.vectorize(lambda t: mapping.get(int(t), int(t)) if t >= 0 else int(t))
-    tracks = {mapping[k]: dataclasses.replace(v, id=mapping[k],
-                                              parent=None if v.parent is None else mapping[v.parent],
-                                              merged_into=None if v.merged_into is None else mapping[v.merged_into])
-              for k, v in alignment.tracks.items()}
-    links = [dataclasses.replace(l, from_track=None if l.from_track is None else mapping[l.from_track],
-                                 to_track=None if l.to_track is None else mapping[l.to_track]) for l in alignment.links]
-    assignment = {p: remap(a).astype(np.int64) if a.size else a for p, a in alignment.assignment.items()}
-    return Alignment(alignment.periods, dict(sorted(tracks.items())), assignment, links)

@@ -23,16 +23,58 @@ True
 
 from __future__ import annotations
 
+import contextlib
+import contextvars
 import os
-from typing import Callable, Iterable, Sequence
+from dataclasses import dataclass
+from typing import Callable, Iterable, Iterator, Sequence
 
 import numpy as np
 
-__all__ = ["map_tasks", "task_seeds", "resolve_workers", "resolve_scheduler", "Progress"]
+__all__ = ["map_tasks", "task_seeds", "resolve_workers", "resolve_scheduler", "Progress", "Execution",
+           "configured", "current"]
 
 Progress = Callable[[int, int], None]  # (done, total)
+Reporter = Callable[[str, int], Progress]  # (label, total) -> progress callback
 
 SCHEDULER_ENV = "ROLETRAIL_SCHEDULER"
+_IN_TASK_ENV = "ROLETRAIL_IN_TASK"
+
+
+@dataclass(frozen=True)
+class Execution:
+    """Where tasks run, set once by the caller (API or CLI) for everything below it.
+
+    ``workers`` None = every core; ``scheduler`` a Dask address; ``reporter``
+    makes a progress callback for a labelled batch of tasks (the CLI shows a
+    bar with a time estimate).  Settings of *how* to compute never change
+    *what* is computed, so they are not part of a fit's stored settings.
+    """
+
+    workers: int | None = None
+    scheduler: str | None = None
+    reporter: Reporter | None = None
+
+
+_CURRENT: contextvars.ContextVar[Execution] = contextvars.ContextVar("roletrail_execution", default=Execution())
+
+
+def current() -> Execution:
+    """The execution settings in force (inside a worker process: one worker, no reporter)."""
+    if os.environ.get(_IN_TASK_ENV):
+        return Execution(workers=1)
+    return _CURRENT.get()
+
+
+@contextlib.contextmanager
+def configured(workers: int | None = None, scheduler: str | None = None,
+               reporter: Reporter | None = None) -> Iterator[Execution]:
+    """``with configured(workers=2): ...``: every :func:`map_tasks` below runs so."""
+    token = _CURRENT.set(Execution(workers, resolve_scheduler(scheduler), reporter))
+    try:
+        yield _CURRENT.get()
+    finally:
+        _CURRENT.reset(token)
 
 
 def task_seeds(seed: int, n: int) -> list[int]:
@@ -66,6 +108,7 @@ def map_tasks(
     workers: int | None = None,
     scheduler: str | None = None,
     progress: Progress | None = None,
+    label: str | None = None,
 ) -> list:
     """``[fn(*task) for task in tasks]``, in order, run where the settings say.
 
@@ -75,15 +118,26 @@ def map_tasks(
         A pure, picklable, module-level function.
     tasks : iterable of argument tuples
     workers : int, optional
-        Local processes (default every core; 1 runs in this process).
+        Local processes; default from :func:`configured` (else every core;
+        1 runs in this process).  Inside a task it is always 1.
     scheduler : str, optional
         Address of a Dask distributed scheduler; overrides ``workers``.
     progress : callable(done, total), optional
         Called as results come back.
+    label : str, optional
+        What the tasks are ("null-model refits"); with a configured reporter,
+        shown as a progress bar.
     """
     tasks = [tuple(t) for t in tasks]
     total = len(tasks)
-    address = resolve_scheduler(scheduler)
+    ctx = current()
+    if workers is None:
+        workers = ctx.workers
+    if os.environ.get(_IN_TASK_ENV):
+        workers = 1
+    if progress is None and label is not None and ctx.reporter is not None and total:
+        progress = ctx.reporter(label, total)
+    address = None if os.environ.get(_IN_TASK_ENV) else resolve_scheduler(scheduler or ctx.scheduler)
     if address is not None:
         return _map_dask(fn, tasks, address, progress)
     n_workers = min(resolve_workers(workers), total)
@@ -98,7 +152,7 @@ def map_tasks(
 
     parallel = Parallel(n_jobs=n_workers, backend="loky", return_as="generator")
     out = []
-    for i, result in enumerate(parallel(delayed(fn)(*task) for task in tasks), 1):
+    for i, result in enumerate(parallel(delayed(_in_task)(fn, task) for task in tasks), 1):
         out.append(result)
         if progress is not None:
             progress(i, total)
@@ -112,7 +166,7 @@ def _map_dask(fn: Callable, tasks: list[tuple], address: str, progress: Progress
         raise ValueError("a Dask scheduler was given but dask.distributed is not installed; "
                          "pip install 'roletrail[cluster]'") from exc
     with Client(address, set_as_default=False) as client:
-        futures = [client.submit(fn, *task, pure=False) for task in tasks]
+        futures = [client.submit(_in_task, fn, task, pure=False) for task in tasks]
         index = {f.key: i for i, f in enumerate(futures)}
         out = [None] * len(futures)
         for done, future in enumerate(as_completed(futures), 1):
@@ -120,3 +174,9 @@ def _map_dask(fn: Callable, tasks: list[tuple], address: str, progress: Progress
             if progress is not None:
                 progress(done, len(futures))
         return out
+
+
+def _in_task(fn: Callable, task: tuple):
+    """Run one task in a worker, marking the process so nested :func:`map_tasks` stay serial."""
+    os.environ[_IN_TASK_ENV] = "1"
+    return fn(*task)
