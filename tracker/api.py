@@ -175,13 +175,57 @@ class Study:
             file_name=table.name, content_hash=file_hash(table.path), mapping=mapping, roster=roster, replace=replace
         )
 
-    def alias(self, alias: str, actor: str) -> dict:
-        """Make ``alias`` another name of ``actor`` (merging them if both exist)."""
-        return self.store.add_alias(alias, actor)
+    def alias(self, alias: str, actor: str, *, refit: bool = False, force: bool = False) -> dict:
+        """Make ``alias`` another name of ``actor`` (merging them if both exist).
 
-    def recut(self, period: str, *, origin: int = 0) -> dict:
-        """Re-cut all dated events into other periods, without re-importing."""
-        return self.store.recut(parse_scheme(period, origin))
+        A merge changes the ties of every period the merged actor was in, so
+        fits that place it would silently go out of date: unless ``refit``
+        (fit them again with their stored settings, re-align, carry track
+        names over; see :mod:`tracker.keeping`) or ``force``, such a merge is
+        refused with a UsageError that lists what would be lost.  The result
+        gains ``refits`` (one entry per fit refitted).
+        """
+        from tracker.keeping import fit_state, loss_message, refit_from
+
+        known = self.store.actors()
+        label_of = {}
+        for label, others in zip(known["actor"], known["aliases"]):
+            label_of[label] = label
+            label_of.update({o: label for o in str(others or "").split("; ") if o})
+        merged, kept = label_of.get(alias.strip()), label_of.get(actor.strip())
+        records = []
+        if merged is not None and kept is not None and merged != kept:
+            records = [r for r in fit_state(self) if (r.members["actor"] == merged).any()]
+            message = loss_message(records, f"merging {merged!r} into {kept!r}", actor=merged)
+            if message and not (refit or force):
+                raise UsageError(message)
+        result = self.store.add_alias(alias, actor)
+        result["refits"] = []
+        if refit and result["merged"] and records:
+            result["refits"] = refit_from(self, records, actor_map={merged: kept}, same_fits=True)
+        return result
+
+    def recut(self, period: str, *, origin: int = 0, refit: bool = False, force: bool = False) -> dict:
+        """Re-cut all dated events into other periods, without re-importing.
+
+        Stored fits belong to the old periods.  When there are any, the re-cut
+        is refused with a UsageError listing what would be lost, unless
+        ``refit`` (every fit is fitted again on the new periods with its
+        stored settings, aligned again when it was, and its track names carried
+        over by overlap in time; see :mod:`tracker.keeping`) or ``force``
+        (drop them).  The result gains ``refits``.
+        """
+        from tracker.keeping import fit_state, loss_message, refit_from
+
+        scheme = parse_scheme(period, origin)
+        records = fit_state(self)
+        message = loss_message(records, "re-cutting the periods")
+        if message and not (refit or force):
+            raise UsageError(message)
+        old_periods = self.store.periods()
+        result = self.store.recut(scheme)
+        result["refits"] = refit_from(self, records, old_periods=old_periods) if refit and records else []
+        return result
 
     # ------------------------------------------------------------------ read
     def periods(self) -> list[str]:
@@ -235,10 +279,10 @@ class Study:
         periods: Sequence[str] | None = None,
         relations: Sequence[str] | None = None,
         draws: int = 39,
-        k_min: int = 2,
-        k_max: int = 8,
+        k_min: int | None = None,
+        k_max: int | None = None,
         options: dict | None = None,
-        smoothing: float | str = "auto",
+        smoothing: float | str | None = None,
         progress: Callable[[str], None] | None = None,
         null_model: str = "ties",
     ) -> dict:
@@ -262,16 +306,31 @@ class Study:
         """
         from tracker import __version__
         from tracker.blockmodel.fitting import FitSettings
+        from tracker.blockmodel.options import check_request
         from tracker.pipeline.fitting import run_fit
 
+        k_range_given = k_min is not None or k_max is not None
+        smoothing_given = smoothing not in (None, "auto")
+        smoothing = "auto" if smoothing is None else smoothing
         settings = FitSettings(
             method=method, positions=positions, criterion=criterion, alpha=alpha, cut=cut, seed=seed,
-            relations=tuple(relations) if relations else None, draws=draws, k_min=k_min, k_max=k_max,
+            relations=tuple(relations) if relations else None, draws=draws,
+            k_min=2 if k_min is None else k_min, k_max=8 if k_max is None else k_max,
             options=dict(options or {}), smoothing=smoothing, null_model=null_model,
         )
-        results = run_fit(self.store, settings, period_selection(self.store, periods), progress)
+        labels = period_selection(self.store, periods)
+        tied = [int(s.tied().sum()) for s in self.store.snapshots(labels, settings.relations)]
+        warnings = check_request(settings, tied=tied, smoothing_given=smoothing_given, k_range_given=k_range_given)
+        results = run_fit(self.store, settings, labels, progress)
         fit_id = self.store.save_fit(settings, results, __version__)
-        return {"fit": fit_id, "periods": with_q_values(self.store.fit_periods(fit_id)).drop(columns=["diagnostics"])}
+        from tracker.views import auto_table
+
+        stored = self.store.fit_periods(fit_id)
+        auto = auto_table(stored[stored["period"].isin(labels)])
+        if settings.positions == "auto" and auto.empty:
+            warnings.append("the number of positions was chosen once for all periods together (smoothed fit); "
+                            "its per-K table is not kept: fit with --smooth off to see each period's table")
+        return {"fit": fit_id, "periods": with_q_values(stored).drop(columns=["diagnostics"]), "warnings": warnings, "auto": auto}
 
     def fits(self) -> pd.DataFrame:
         """Every stored fit with its settings; ``current`` marks the one other verbs use."""
@@ -285,8 +344,11 @@ class Study:
         """Settings of the current (or a chosen) fit."""
         return self.store.current_fit(fit)
 
-    def memberships(self, fit: int | None = None) -> pd.DataFrame:
-        """period, actor, position (1-based), isolate, track (once aligned), confidence."""
+    def memberships(self, fit: int | None = None, *, names: bool = False) -> pd.DataFrame:
+        """period, actor, position (1-based), isolate, track (once aligned), confidence.
+
+        ``names`` adds ``track_name`` beside ``track``.
+        """
         fit_id = self.store.current_fit(fit)["id"]
         members = self.store.memberships(fit_id)
         positions = self.store.track_positions(fit_id)
@@ -294,6 +356,10 @@ class Study:
             members = members.merge(positions, on=["period", "position"], how="left")
             members["track"] = members["track"].astype("Int64")
             members = members[["period", "actor", "position", "track", "isolate", "confidence"]]
+            if names:
+                from tracker.views import name_tracks
+
+                members = name_tracks(members, track_names(self.store.tracks(fit_id)), columns=("track",))
         return members
 
     def blocks(self, fit: int | None = None) -> pd.DataFrame:
@@ -340,8 +406,12 @@ class Study:
             out[rel] = {"density": dens, "image": img}
         row = self.store.fit_periods(info["id"])
         row = row[row["period"] == period].iloc[0].to_dict()
+        shown = part if relation is None else part[part["relation"] == relation]
         return {"period": period, "fit": info["id"], "criterion": info["criterion"], "positions": positions,
-                "relations": out, "fit_row": row}
+                "relations": out, "fit_row": row,
+                "members": {int(p): list(g["actor"]) for p, g in members.groupby("position")},
+                "names": self._position_names(info["id"]).get(period, {}),
+                "blocks": shown[["relation", "from_position", "to_position", "ties", "possible", "density", "image"]]}
 
     # ------------------------------------------------------------------ structures
     @_computing
@@ -444,8 +514,14 @@ class Study:
         seed: int | None = None,
         rebuild: bool = False,
         include_isolates: bool = False,
+        names_from: int | None = None,
     ) -> dict:
         """Link every period's positions to persistent tracks, find moves and their confidence.
+
+        ``names_from`` (another aligned fit) gives this fit's tracks the names
+        of that fit's tracks they overlap most (same actors in the same
+        periods; :func:`tracker.longitudinal.carry.carry_names`); names this
+        fit already has are kept.
 
         Periods aligned before keep their tracks exactly (new periods are
         aligned after them) unless ``rebuild``; track names are kept by track
@@ -467,10 +543,31 @@ class Study:
         params = {"weight_overlap": weight_overlap, "link_threshold": link_threshold,
                   "split_threshold": split_threshold, "max_gap": max_gap, "draws": draws, "seed": seed,
                   "include_isolates": include_isolates}
+        if names_from is not None:
+            source = self.store.current_fit(int(names_from))["id"]
+            self._require_alignment(source)
         alignment, moves, order, done = align_fit(self.store, info, params, rebuild=rebuild)
         self.store.save_alignment(fit_id, params, alignment, moves)
+        carried = {}
+        if names_from is not None:
+            carried = self._carry_names_from(source, fit_id)
         return {"fit": fit_id, "tracks": self.tracks(fit_id), "moves": self.store.moves(fit_id),
-                "periods": len(order), "new_periods": len(order) - done}
+                "periods": len(order), "new_periods": len(order) - done, "names_carried": carried}
+
+    def _carry_names_from(self, source: int, fit_id: int) -> dict:
+        """Names of ``source``'s tracks given to ``fit_id``'s best-overlapping tracks (its own names kept)."""
+        from tracker.longitudinal.carry import carry_names
+
+        tracks = self.store.tracks(source)
+        names = {int(t): n for t, n in zip(tracks["track"], tracks["name"]) if isinstance(n, str) and n}
+        mine = self.store.tracks(fit_id)
+        own = {int(t): n for t, n in zip(mine["track"], mine["name"]) if isinstance(n, str) and n}
+        periods = self.store.periods()
+        carried, _ = carry_names(self.memberships(source), self.memberships(fit_id),
+                                 {t: n for t, n in names.items() if n not in own.values()}, periods, periods)
+        carried = {t: n for t, n in carried.items() if t not in own}
+        self.store.set_track_names(fit_id, {**own, **carried})
+        return carried
 
     def tracks(self, fit: int | None = None) -> pd.DataFrame:
         """Tracks of the current (or a chosen) fit: id, name, first and last period, parent, merges, size."""
@@ -507,18 +604,29 @@ class Study:
         """Transition counts and row shares between tracks, per step and pooled ("all")."""
         from tracker.longitudinal.movement import transitions
 
+        from tracker.views import name_tracks
+
         fit_id = self.store.current_fit(fit)["id"]
         self._require_alignment(fit_id)
         members = self.memberships(fit_id)
-        return transitions(members, self._fitted_periods(fit_id), ignore_tracks=() if include_isolates else (0,))
+        table = transitions(members, self._fitted_periods(fit_id), ignore_tracks=() if include_isolates else (0,))
+        return name_tracks(table, track_names(self.store.tracks(fit_id)))
 
-    def trajectories(self, fit: int | None = None) -> pd.DataFrame:
-        """Each actor's track in each period (wide: one column per period), with entry and exit periods."""
+    def trajectories(self, fit: int | None = None, *, names: bool = True) -> pd.DataFrame:
+        """Each actor's track in each period (wide: one column per period), with entry and exit periods.
+
+        Cells hold the track's name (``names``, the default) or its number.
+        """
         from tracker.longitudinal.movement import trajectories
+        from tracker.views import named_trajectories
 
         fit_id = self.store.current_fit(fit)["id"]
         self._require_alignment(fit_id)
-        return trajectories(self.memberships(fit_id), self._fitted_periods(fit_id)).reset_index()
+        periods = self._fitted_periods(fit_id)
+        wide = trajectories(self.memberships(fit_id), periods)
+        if names:
+            wide = named_trajectories(wide, track_names(self.store.tracks(fit_id)), periods)
+        return wide.reset_index()
 
     def mobility(self, fit: int | None = None) -> pd.DataFrame:
         """Per step: actors present in both periods, movers, mobility rate, entries, exits."""
@@ -527,6 +635,23 @@ class Study:
         fit_id = self.store.current_fit(fit)["id"]
         self._require_alignment(fit_id)
         return mobility(self.memberships(fit_id), self._fitted_periods(fit_id), ignore_tracks=(0,))
+
+    def compare(self, fit_a: int, fit_b: int) -> dict:
+        """Agreement of two stored fits, period by period (see :func:`tracker.longitudinal.compare.compare_fits`).
+
+        Returns ``{"fit_a", "fit_b", "periods", "actors", "moves"}``; ``moves``
+        is None unless both fits are aligned.
+        """
+        from tracker.longitudinal.compare import compare_fits
+
+        ids = [self.store.current_fit(int(f))["id"] for f in (fit_a, fit_b)]
+        members = [self.store.memberships(f) for f in ids]
+        aligned = all(not self.store.track_positions(f).empty for f in ids)
+        moves = [self.store.moves(f) for f in ids] if aligned else [None, None]
+        out = compare_fits(members[0], members[1], moves[0], moves[1])
+        if out["periods"].empty:
+            raise UsageError(f"fits {ids[0]} and {ids[1]} have no fitted period in common; fit the same periods first")
+        return {"fit_a": ids[0], "fit_b": ids[1], **out}
 
     def export_graphml(self, folder: str | os.PathLike, *, fit: int | None = None) -> list[Path]:
         """Write each period's snapshot as GraphML (an open standard) with position and track as node attributes.
@@ -636,22 +761,49 @@ class Study:
         return tables, periods, meta
 
     def report(self, path: str | os.PathLike, *, fit: int | None = None, anonymise: bool = False,
-               structure_draws: int = 199) -> Path:
-        """Write the self-contained offline HTML report; returns its path."""
+               structure_draws: int = 199, key: str | os.PathLike | None = None) -> Path:
+        """Write the self-contained offline HTML report; returns its path.
+
+        ``anonymise`` replaces actor labels by codes and the study's file name
+        in the title by "Anonymised study" (a file name often names the
+        partnership); ``key`` then writes the code -> label table as CSV to a
+        separate file for the analyst (keep it apart from the report).
+        """
         from tracker.report.html import build_report
 
+        if key is not None and not anonymise:
+            raise UsageError("--key writes the codes of an anonymised report; add --anonymise")
         tables, periods, meta = self.report_tables(fit, structure_draws=structure_draws)
+        if anonymise:
+            meta = {**meta, "study": "Anonymised study"}
         html = build_report(tables, periods, meta, anonymise=anonymise)
         path = Path(path)
         path.write_text(html, encoding="utf-8")
+        if key is not None:
+            from tracker.output import render
+            from tracker.report.anonymise import anonymise_tables
+
+            codes = anonymise_tables(tables)[1]  # the same tables and seed give build_report's codes
+            frame = pd.DataFrame(sorted((c, label) for label, c in codes.items()), columns=["code", "actor"])
+            Path(key).write_text(render(frame, "csv"), encoding="utf-8")
         return path
 
     def chart(self, name: str, path: str | os.PathLike, *, fit: int | None = None, **options) -> Path:
         """Write one chart as PNG, SVG or Vega-Lite JSON (by the file's suffix)."""
+        import inspect
+
         from tracker.report.charts import CHARTS, make_chart, save_chart
 
         if name not in CHARTS:
             raise UsageError(f"unknown chart {name!r}; use one of: {', '.join(CHARTS)}")
+        accepted = inspect.signature(CHARTS[name]).parameters
+        for option in options:
+            if option not in accepted:
+                takers = sorted(n for n, f in CHARTS.items() if option in inspect.signature(f).parameters)
+                from tracker.blockmodel.options import _only
+
+                raise UsageError(f"--{option.replace('_', '-')} does not apply to chart {name}"
+                                 + (f"; {_only(takers)}" if takers else ""))
         tables, periods, _ = self.report_tables(fit, structure_draws=0 if name != "structure" else 99)
         chart = make_chart(name, tables, periods, **options)
         path = Path(path)

@@ -34,6 +34,8 @@ class _Group(click.Group):
             raise
         except KeyboardInterrupt:
             _fail("interrupted; the study is unchanged", 130)
+        except BrokenPipeError:
+            _closed_pipe()
         except Exception as exc:  # noqa: BLE001 - last line of defence for the user
             if os.environ.get("ROLETRAIL_DEBUG"):
                 raise
@@ -60,6 +62,21 @@ def _known_database_problem(exc: Exception) -> str | None:
     return None
 
 
+def _closed_pipe() -> None:
+    """The reader of our output went away (``roletrail moves | head``): stop quietly, as command-line tools do.
+
+    Standard output is pointed at the null device so Python's final flush does
+    not complain; the exit status is 128 + SIGPIPE, what a shell reports for
+    a tool stopped by a closed pipe.  Whatever was saved before stays saved.
+    """
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError, AttributeError):
+        pass
+    sys.exit(141)
+
+
 def _fail(message: str, code: int) -> None:
     click.echo(f"roletrail: error: {message}", err=True)
     sys.exit(code)
@@ -80,6 +97,7 @@ def listing(func):
                   help="How to print: table to read on screen; csv or json for spreadsheets and other programs.")
     @click.option("-o", "--output", type=click.Path(dir_okay=False, writable=True), default=None,
                   help="Write to this file instead of the screen (standard output).")
+    @_raw_option
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
         return func(*args, **kwargs)
@@ -87,8 +105,22 @@ def listing(func):
     return wrapper
 
 
+def _raw_option(func):
+    """``--raw``: CSV cells exactly as stored (by default formula-like text gets a leading quote)."""
+
+    def remember(ctx, _param, value):
+        ctx.meta["roletrail.raw"] = bool(value)
+        return value
+
+    return click.option("--raw", is_flag=True, expose_value=False, callback=remember,
+                        help="CSV: write cells as they are; by default text starting with = + - @ gets a "
+                             "leading ' so spreadsheets do not run it as a formula.")(func)
+
+
 def _emit(frame: pd.DataFrame, fmt: str, output: str | None, title: str | None = None) -> None:
-    write(render(frame, fmt, title=title), output)
+    ctx = click.get_current_context(silent=True)
+    raw = bool(ctx and ctx.meta.get("roletrail.raw"))
+    write(render(frame, fmt, title=title, raw=raw), output)
     if output and output != "-":
         click.echo(f"wrote {len(frame)} rows to {output}", err=True)
 
@@ -276,17 +308,38 @@ def check(ctx, repair, all_fits):
     sys.exit(1)
 
 
+def _keep_options(func):
+    """--refit / --force of the commands that change the data under stored fits."""
+    func = click.option("--force", is_flag=True, help="Go ahead and drop the fits, alignments and track names "
+                        "the change makes out of date.")(func)
+    return click.option("--refit", is_flag=True, help="Fit every affected fit again with its stored settings, "
+                        "align it again and carry its track names over.")(func)
+
+
+def _echo_refits(refits) -> None:
+    for entry in refits:
+        if entry["error"]:
+            click.echo(f"fit {entry['old']} could not be fitted again ({entry['error']}); it is gone")
+            continue
+        names = ", ".join(f"{n!r} -> track {t}" for t, n in sorted(entry["names"].items()))
+        click.echo(f"fit {entry['old']} fitted again as fit {entry['new']}" + (f"; names carried: {names}" if names else ""))
+        if entry["lost"]:
+            click.echo(f"  names with no matching track: {', '.join(map(repr, entry['lost']))}")
+
+
 @main.command()
 @click.argument("other_name")
 @click.argument("actor")
+@_keep_options
 @click.pass_context
-def alias(ctx, other_name, actor):
+def alias(ctx, other_name, actor, refit, force):
     """Record OTHER_NAME as another spelling of ACTOR (merging the two if both have events)."""
-    result = _study(ctx).alias(other_name, actor)
+    result = _study(ctx).alias(other_name, actor, refit=refit, force=force)
     if result["merged"]:
         click.echo(f"merged {other_name!r} into {actor!r}: {result['events_moved']} events moved, ties rebuilt")
     else:
         click.echo(f"{other_name!r} now names {actor!r}")
+    _echo_refits(result["refits"])
 
 
 @main.command()
@@ -294,11 +347,13 @@ def alias(ctx, other_name, actor):
               help="New way to group dates into periods: year, quarter, month, or N-year windows such as 2y.")
 @click.option("--period-origin", default=0, type=int,
               help="With N-year windows: the first year of any one window (default: windows start at multiples of N).")
+@_keep_options
 @click.pass_context
-def recut(ctx, period, period_origin):
+def recut(ctx, period, period_origin, refit, force):
     """Group every dated event into new periods (re-cut; no re-import needed)."""
-    result = _study(ctx).recut(period, origin=period_origin)
+    result = _study(ctx).recut(period, origin=period_origin, refit=refit, force=force)
     click.echo(f"re-cut {result['events']} events into {result['periods']} periods by {result['scheme']}")
+    _echo_refits(result["refits"])
 
 
 def _periods_option(func):
@@ -343,8 +398,9 @@ def _split(values) -> list[str] | None:
 @click.option("--null", "null_model", default="ties", show_default=True, type=click.Choice(["ties", "degrees"]),
               help="What the random networks of the fit test keep: ties (the number of ties and their values) or "
                    "degrees (every actor's number of ties sent and received).")
-@click.option("--k-range", default="2-8", show_default=True,
-              help="With --positions auto: the smallest and largest number of positions tried, as MIN-MAX.")
+@click.option("--k-range", default=None,
+              help="With --positions auto: the smallest and largest number of positions tried, as MIN-MAX "
+                   "[default: 2-8].")
 @click.option("--linkage",
               help="structural, regular: how groups of actors are joined while clustering: average, complete, ward or "
                    "single (hierarchical-clustering linkage).")
@@ -363,9 +419,9 @@ def _split(values) -> list[str] | None:
 @click.option("--joint", is_flag=True,
               help="sbm: one model over all periods, so that position k means the same in every period (dynamic "
                    "stochastic blockmodel).")
-@click.option("--smooth", "smoothing", default="auto", show_default=True,
+@click.option("--smooth", "smoothing", default=None,
               help="How strongly to resist changes of position from one period to the next (change penalty, in nats): "
-                   "auto, off (fit each period alone) or a number; higher means fewer, surer moves.")
+                   "auto, off (fit each period alone) or a number; higher means fewer, surer moves [default: auto].")
 @computing
 @click.pass_context
 def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations, draws, null_model, k_range, linkage,
@@ -376,10 +432,12 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
     """
     from tracker.errors import UsageError
 
-    try:
-        k_min, k_max = (int(x) for x in k_range.split("-"))
-    except ValueError:
-        raise UsageError(f"--k-range takes MIN-MAX such as 2-8, not {k_range!r}") from None
+    k_min = k_max = None
+    if k_range is not None:
+        try:
+            k_min, k_max = (int(x) for x in k_range.split("-"))
+        except ValueError:
+            raise UsageError(f"--k-range takes MIN-MAX such as 2-8, not {k_range!r}") from None
     try:
         positions = positions if positions == "auto" else int(positions)
     except ValueError:
@@ -393,7 +451,7 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
         options["model"] = sbm_model
     if joint:
         options["joint"] = True
-    if smoothing not in ("auto",):
+    if smoothing not in (None, "auto"):
         if smoothing in ("off", "none", "no"):
             smoothing = 0.0
         else:
@@ -407,7 +465,25 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
         options=options, smoothing=smoothing, null_model=null_model,
     )
     click.echo(f"fit {result['fit']} ({method}, {criterion}, seed {seed}) is now current")
+    for line in result.get("warnings", ()):
+        click.echo(f"warning: {line}", err=True)
     _emit(result["periods"], "table", None)
+    _echo_auto(result.get("auto"))
+
+
+def _filled(value) -> bool:
+    return not (value is None or value == "" or (isinstance(value, float) and pd.isna(value)))
+
+
+def _echo_auto(table) -> None:
+    """The per-K table of --positions auto and the reason for each choice."""
+    from tracker.views import auto_reasons
+
+    if table is None or table.empty:
+        return
+    _emit(table.drop(columns=["rule"]), "table", None, title="Numbers of positions tried (--positions auto)")
+    for line in auto_reasons(table):
+        click.echo(line)
 
 
 @main.command()
@@ -415,9 +491,13 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
 @click.pass_context
 def fits(ctx, fmt, output):
     """List stored fits with their settings; show, export, align and the other commands use the current one."""
-    frame = _study(ctx).fits()
+    from tracker.views import fits_table
+
+    frame = fits_table(_study(ctx).fits())
     if fmt == "table":
-        frame = frame.drop(columns=["params"])
+        frame = frame.drop(columns=["params", "created_at", "version"])
+        empty = [c for c in ("k_range", "alpha", "cut", "options") if not frame[c].map(_filled).any()]
+        frame = frame.drop(columns=empty)
     _emit(frame, fmt, output, title="Fits")
 
 
@@ -435,37 +515,15 @@ def use_fit(ctx, fit_id):
 @click.option("--fit", "fit_id", type=int,
               help="Which stored fit (its number in roletrail fits; default: the current one).")
 @click.option("--relation", help="Only this kind of tie (relation).")
+@click.option("--width", type=click.IntRange(40, 400), default=None,
+              help="Wrap to this many columns (default: the terminal's width, 80 in a pipe).")
 @click.pass_context
-def show(ctx, period, fit_id, relation):
-    """Show PERIOD's density table and image side by side."""
-    from rich.console import Console
-    from rich.table import Table
-    from rich.text import Text
+def show(ctx, period, fit_id, relation, width):
+    """Show PERIOD: who is in each position, the image as a grid, and the blocks with ties."""
+    from tracker.report.console import render_period
 
     view = _study(ctx).show(period, fit=fit_id, relation=relation)
-    row = view["fit_row"]
-    console = Console(highlight=False)
-    p = "-" if row["p_value"] is None or pd.isna(row["p_value"]) else f"{row['p_value']:.3f}"
-    corr = "-" if row["density_correlation"] is None or pd.isna(row["density_correlation"]) else f"{row['density_correlation']:.3f}"
-    console.print(Text(
-        f"Period {view['period']} - fit {view['fit']}, criterion {view['criterion']}: "
-        f"{row['positions']} positions, {row['inconsistencies']:g} inconsistencies, "
-        f"density correlation {corr}, fit-test p {p}" + (" (perfect fit)" if row["perfect_fit"] else "")
-    ))
-    for rel, parts in view["relations"].items():
-        dens, img = parts["density"], parts["image"]
-        table = Table(title=Text(f"{rel}: density | image"), header_style="bold")
-        table.add_column("from \\ to")
-        for col in dens.columns:
-            table.add_column(Text(str(col).split(" ")[0]), justify="right")
-        table.add_column("|")
-        for col in img.columns:
-            table.add_column(Text(str(col).split(" ")[0]), justify="center")
-        for label in dens.index:
-            cells = [Text(f"{v:.2f}") for v in dens.loc[label]]
-            marks = [Text("1" if v else ".") for v in img.loc[label]]
-            table.add_row(Text(str(label)), *cells, Text("|"), *marks)
-        console.print(table)
+    click.echo(render_period(view, width), nl=False)
 
 
 @main.command()
@@ -520,14 +578,20 @@ def _structures_frame(table: pd.DataFrame) -> pd.DataFrame:
               help="Link every period again from scratch (track numbers and names carried over by best match).")
 @click.option("--include-isolates", is_flag=True,
               help="Count going into or out of the no-tie group (actors without ties in a period) as moves.")
+@click.option("--names-from", type=int, default=None, metavar="FIT",
+              help="Give the tracks the names of another aligned fit's tracks they overlap most.")
 @computing
 @click.pass_context
-def align(ctx, fit_id, overlap_weight, link_threshold, split_threshold, max_gap, draws, seed, rebuild, include_isolates):
+def align(ctx, fit_id, overlap_weight, link_threshold, split_threshold, max_gap, draws, seed, rebuild, include_isolates,
+          names_from):
     """Link positions across periods into tracks (lasting positions); find who moved and how sure each move is."""
     result = _study(ctx).align(
         fit=fit_id, weight_overlap=overlap_weight, link_threshold=link_threshold, split_threshold=split_threshold,
         max_gap=max_gap, draws=draws, seed=seed, rebuild=rebuild, include_isolates=include_isolates,
+        names_from=names_from,
     )
+    for track, name in sorted(result.get("names_carried", {}).items()):
+        click.echo(f"track {track} takes the name {name!r} from fit {names_from}")
     moves = result["moves"]
     low = int((moves["confidence"] < 0.5).sum()) if len(moves) else 0
     click.echo(
@@ -589,22 +653,64 @@ def transitions(ctx, fmt, output, fit_id):
     _emit(_study(ctx).transitions(fit_id), fmt, output, title="Transitions")
 
 
-EXPORTS = ("memberships", "blocks", "fit-periods", "structures", "moves", "transitions", "tracks", "mobility",
-           "trajectories", "graphml")
+@main.command()
+@click.argument("fit_a", type=int)
+@click.argument("fit_b", type=int)
+@listing
+@click.option("--part", type=click.Choice(["all", "periods", "actors", "moves"]), default="all", show_default=True,
+              help="Which table: agreement per period, actors placed differently, moves found by one fit only "
+                   "(csv takes one table).")
+@click.pass_context
+def compare(ctx, fit_a, fit_b, fmt, output, part):
+    """How far two fits agree: per period (adjusted Rand index), who is placed differently, which moves differ."""
+    from tracker.errors import UsageError
+    from tracker.output import to_json_records
+
+    result = _study(ctx).compare(fit_a, fit_b)
+    parts = ["periods", "actors", "moves"] if part == "all" else [part]
+    if fmt == "csv" and len(parts) > 1:
+        raise UsageError("CSV holds one table: add --part periods, --part actors or --part moves")
+    if "moves" in parts and result["moves"] is None:
+        if part == "moves":
+            raise UsageError(f"fits {fit_a} and {fit_b} are not both aligned; run roletrail align --fit N for each")
+        parts.remove("moves")
+    if fmt == "json" and len(parts) > 1:
+        import json as _json
+
+        payload = {"fit_a": result["fit_a"], "fit_b": result["fit_b"],
+                   **{name: to_json_records(result[name]) for name in parts}}
+        write(_json.dumps(payload, indent=2, ensure_ascii=False) + "\n", output)
+        return
+    titles = {"periods": f"Agreement of fit {fit_a} (A) and fit {fit_b} (B) per period",
+              "actors": "Actors placed differently (matched_b: the B position that corresponds to position_a)",
+              "moves": "Moves found by one fit only"}
+    for name in parts:
+        _emit(result[name], fmt, output, title=titles[name])
+    if fmt == "table" and output is None and "moves" not in parts and part == "all":
+        click.echo("moves: not compared; align both fits first (roletrail align --fit N)")
+
+
+EXPORTS = ("memberships", "blocks", "fit-periods", "positions-auto", "structures", "moves", "transitions", "tracks",
+           "mobility", "trajectories", "graphml")
 
 
 @main.command()
 @click.argument("what", type=click.Choice(EXPORTS))
 @click.option("--format", "fmt", type=click.Choice(["csv", "json"]), default="csv", show_default=True,
               help="csv for spreadsheets, json for other programs.")
-@click.option("-o", "--output", type=click.Path(dir_okay=False), default=None,
-              help="File to write (default: the screen, standard output).")
+@click.option("-o", "--output", type=click.Path(), default=None,
+              help="File to write (default: the screen, standard output); for graphml a folder.")
 @click.option("--fit", "fit_id", type=int,
               help="Which stored fit (its number in roletrail fits; default: the current one).")
+@_raw_option
 @computing
 @click.pass_context
 def export(ctx, what, fmt, output, fit_id):
     """Export results of the current fit as a table (graphml: one network file per period into folder -o)."""
+    from tracker.errors import UsageError
+
+    if what != "graphml" and output and os.path.isdir(output):
+        raise UsageError(f"-o {output} is a folder; give a file name for the {what} export")
     study = _study(ctx)
     if what == "graphml":
         folder = output or "graphml"
@@ -617,16 +723,18 @@ def export(ctx, what, fmt, output, fit_id):
 
 def _export_frame(study, what: str, fit_id):
     if what == "memberships":
-        return study.memberships(fit_id)
+        return study.memberships(fit_id, names=True)
+    if what == "positions-auto":
+        from tracker.views import auto_table
+
+        return auto_table(study.fit_periods(fit_id))
     if what == "blocks":
         return study.blocks(fit_id)
     if what == "structures":
         return _structures_frame(study.structures(fit=fit_id))
     if what in ("moves", "transitions", "tracks", "mobility", "trajectories"):
         return getattr(study, what)(fit_id)
-    frame = study.fit_periods(fit_id)
-    frame["diagnostics"] = [json.dumps(d) for d in frame["diagnostics"]]
-    return frame
+    return study.fit_periods(fit_id)
 
 
 @main.command()
@@ -638,12 +746,14 @@ def _export_frame(study, what: str, fit_id):
               help="Replace actor names with codes (A001 ...) everywhere in the report, charts included.")
 @click.option("--structure-draws", default=199, show_default=True, type=int,
               help="Random images used to test each period's structure against chance (more is slower and more precise).")
+@click.option("--key", type=click.Path(dir_okay=False), default=None,
+              help="With --anonymise: also write the code -> actor table (CSV) to this separate file.")
 @computing
 @click.pass_context
-def report(ctx, output, fit_id, anonymise, structure_draws):
+def report(ctx, output, fit_id, anonymise, structure_draws, key):
     """Write the self-contained offline HTML report (one file; no network needed)."""
-    path = _study(ctx).report(output, fit=fit_id, anonymise=anonymise, structure_draws=structure_draws)
-    click.echo(f"wrote {path}")
+    path = _study(ctx).report(output, fit=fit_id, anonymise=anonymise, structure_draws=structure_draws, key=key)
+    click.echo(f"wrote {path}" + (f" and the key to its codes to {key} (keep it apart from the report)" if key else ""))
 
 
 @main.command()

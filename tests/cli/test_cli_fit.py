@@ -104,12 +104,12 @@ def test_new_settings_keep_older_fits_and_use_fit_switches(fitted):
     assert len(json.loads(_run(db, "fits", "--format", "json"))) == 2
 
 
-def test_show_prints_density_and_image_with_sizes(fitted):
+def test_show_prints_members_image_and_blocks_with_sizes(fitted):
     db, _, _ = fitted
     _run(db, "fit", "--positions", "3", "--draws", "0")
     out = _run(db, "show", "2019")
-    assert "n=6" in out and "no ties" in out and "coop: density | image" in out
-    assert "1.00" in out and "0 inconsistencies" in out
+    assert "(6):" in out and "no ties (2):" in out and "Image of coop" in out
+    assert "1.000" in out and "0 inconsistencies" in out
 
 
 def test_fit_errors_are_one_line(fitted):

@@ -103,6 +103,9 @@ class FitSettings:
             raise UsageError(f"--alpha must lie between 0 and 1, not {self.alpha}")
         if not 1 <= self.k_min <= self.k_max:
             raise UsageError("the range of positions tried needs 1 <= min <= max")
+        from tracker.blockmodel.options import check_options
+
+        object.__setattr__(self, "options", check_options(self.method, self.options))
 
     def as_dict(self) -> dict:
         out = asdict(self)

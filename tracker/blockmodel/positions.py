@@ -38,7 +38,7 @@ from tracker.blockmodel.partition import Partition
 from tracker.blockmodel.selection import AUTO_RULE, MIN_GAIN, choose_k
 from tracker.errors import UsageError
 
-__all__ = ["METHODS", "register_method", "find_positions"]
+__all__ = ["METHODS", "METHOD_OPTIONS", "register_method", "find_positions"]
 
 # Options that hold one value per actor: find_positions cuts them down to the
 # tied actors before handing them to the method.
@@ -92,7 +92,51 @@ METHODS: MutableMapping = _MethodRegistry(
 )
 
 
-def register_method(name: str, cls) -> None:
+def _method_options() -> dict:
+    """The options each built-in method accepts (checked by :func:`tracker.blockmodel.options.check_options`)."""
+    from tracker.blockmodel.options import Option
+
+    hier = ("single", "complete", "average", "weighted")
+    restarts = Option("restarts", int, "--restarts", low=1, high=10_000, help="random starts")
+    sweeps = Option("max_sweeps", int, "--max-sweeps", low=0, help="cap on the sweeps of each start")
+    return {
+        "structural": {
+            "linkage": Option("linkage", str, "--linkage", choices=hier + ("ward",)),
+            "measure": Option("measure", str, "--measure", choices=("euclidean", "correlation")),
+        },
+        "concor": {
+            "max_iter": Option("max_iter", int, "--max-iter", low=1),
+            "tol": Option("tol", float, "--tol", low=1e-15),
+        },
+        "regular": {
+            "linkage": Option("linkage", str, "--linkage", choices=hier),
+            "exact": Option("exact", bool, "--exact"),
+            "iterations": Option("iterations", int, "--iterations", low=1, high=100),
+            "match": Option("match", str, "--match", choices=("pair", "arc")),
+        },
+        "optimize": {
+            "restarts": restarts,
+            "init": Option("init", str, "--init", choices=("structural", "random")),
+            "max_sweeps": sweeps,
+        },
+        "sbm": {
+            "model": Option("model", str, "--model", choices=("poisson", "bernoulli")),
+            "degree_corrected": Option("degree_corrected", bool, "--degree-corrected"),
+            "restarts": restarts,
+            "max_sweeps": sweeps,
+            "joint": Option("joint", bool, "--joint"),
+            # the joint (dynamic) model's own iteration controls (tracker.blockmodel.sbm_dynamic)
+            "max_iter": Option("max_iter", int, "max_iter", low=1),
+            "tol": Option("tol", float, "tol", low=1e-15),
+        },
+    }
+
+
+#: Method name -> {option name: Option}: what each method accepts, with types and ranges.
+METHOD_OPTIONS: dict = _method_options()
+
+
+def register_method(name: str, cls, options: dict | None = None) -> None:
     """Make a position-finding method available to :func:`find_positions`.
 
     Parameters
@@ -101,10 +145,17 @@ def register_method(name: str, cls) -> None:
         The name users give as ``method``.
     cls : type or str
         The class, or ``"module:Class"`` to import it on first use.
+    options : dict, optional
+        ``{option name: tracker.blockmodel.options.Option}``: what the method
+        accepts.  Without it the method's options are not checked up front.
     """
     if not isinstance(name, str) or not name:
         raise ValueError("a method needs a non-empty name")
     METHODS[name] = cls
+    if options is not None:
+        METHOD_OPTIONS[name] = dict(options)
+    else:
+        METHOD_OPTIONS.pop(name, None)
 
 
 def find_positions(

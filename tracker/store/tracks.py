@@ -163,3 +163,10 @@ class TrackStore(StoreBase):
                     raise UsageError("this fit has no tracks yet; run roletrail align first")
                 raise UsageError(f"no track {track} in fit {fit_id}; the tracks are {', '.join(map(str, known))}")
             conn.execute(update(Track).where(Track.fit_id == fit_id, Track.track == track).values(name=name))
+
+    def set_track_names(self, fit_id: int, names: dict) -> None:
+        """Set every track name of a fit at once: ``names`` maps track -> name; other tracks lose theirs."""
+        with self._write() as conn:
+            conn.execute(update(Track).where(Track.fit_id == fit_id).values(name=None))
+            for track, name in names.items():
+                conn.execute(update(Track).where(Track.fit_id == fit_id, Track.track == int(track)).values(name=name))
