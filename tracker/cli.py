@@ -8,7 +8,6 @@ left unchanged (every write is one transaction).
 from __future__ import annotations
 
 import functools
-import json
 import os
 import sys
 

@@ -383,6 +383,10 @@ def replay(analysis: Analysis, study, *, data_dir: str | Path | None = None, rep
     fit_map: dict[int, int] = {}
     for i, entry in enumerate(analysis.fits, 1):
         options = dict(entry["settings"])
+        if options.get("positions") != "auto":
+            # The range of K is a setting of --positions auto only; a fixed K refuses it.
+            options.pop("k_min", None)
+            options.pop("k_max", None)
         if entry["periods"] is not None:
             options["periods"] = entry["periods"]
         result = _call(study.fit, options, name, f"[[fit]] {i}")
