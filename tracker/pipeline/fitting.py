@@ -57,7 +57,7 @@ def fit_joint(snapshots: list, settings) -> list:
 
     from tracker.blockmodel.fitting import fit_partition
     from tracker.blockmodel.partition import Partition
-    from tracker.blockmodel.sbm_dynamic import DynamicSBM
+    from tracker.models.dynamic import DynamicSBM
 
     if settings.method != "sbm":
         raise UsageError("a joint fit over all periods is a dynamic SBM: use --method sbm with --joint")

@@ -10,10 +10,9 @@ import scipy.sparse as sp
 from scipy.special import gammaln, logsumexp, xlogy
 from sklearn.metrics import adjusted_rand_score
 
-from tracker.blockmodel import sbm_dynamic as dyn
+from tracker.models import dynamic as dyn
 from tracker.blockmodel.sbm import SBMPositions, log_likelihood
-from tracker.blockmodel.sbm_dynamic import DynamicSBM
-from tracker.errors import UsageError
+from tracker.models.dynamic import DynamicSBM
 from tests.helpers.planted import planted_sbm
 
 VARIANTS = [("poisson", False), ("bernoulli", False), ("poisson", True)]
@@ -240,13 +239,13 @@ def test_same_seed_same_answer():
 
 def test_usage_errors():
     A = sp.csr_array(np.array([[0.0, 1.0], [1.0, 0.0]]))
-    with pytest.raises(UsageError):
+    with pytest.raises(ValueError):
         DynamicSBM(2).fit([])
-    with pytest.raises(UsageError):
+    with pytest.raises(ValueError):
         DynamicSBM(2).fit([(["a", "b"], [A], [False]), (["a", "b"], [A], [True])])  # relations differ
-    with pytest.raises(UsageError):
+    with pytest.raises(ValueError):
         DynamicSBM(2).fit([(["a", "a"], [A], [False])])  # an actor twice
-    with pytest.raises(UsageError):
+    with pytest.raises(ValueError):
         DynamicSBM(3).fit([(["a", "b"], [A], [False])])  # more positions than actors
-    with pytest.raises(UsageError):
+    with pytest.raises(ValueError):
         DynamicSBM(2).fit([(["a", "b", "c"], [A], [False])])  # matrix does not fit the actors

@@ -41,20 +41,11 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.special import gammaln, xlogy
 
-from tracker.blockmodel.sbm import (
-    _check_matrices,
-    _check_options,
-    _check_positions,
-    _greedy,
-    _make_rel,
-    _random_labels,
-    _spectral_labels,
-)
-from tracker.errors import UsageError
+from tracker.execution import map_tasks, task_seeds
+from tracker.models import likelihood as lik
 
 __all__ = ["DynamicSBM"]
 
-_RATE_FLOOR = 1e-300  # keeps log(rate) finite for blocks without ties
 _PROB_FLOOR = 1e-10  # keeps the forward recursion away from exact zeros
 
 
@@ -187,18 +178,18 @@ class DynamicSBM:
         -------
         self
         """
-        _check_options(self.model, self.degree_corrected)
+        lik.check_options(self.model, self.degree_corrected)
         if int(self.restarts) < 1 or int(self.max_iter) < 1:
-            raise UsageError("restarts and max_iter must be at least 1")
+            raise ValueError("restarts and max_iter must be at least 1")
         data = _prepare_periods(periods, self.model == "bernoulli", bool(self.degree_corrected))
-        B = _check_positions(self.n_positions, data.n)
+        B = lik.check_positions(self.n_positions, data.n)
         rng = np.random.default_rng(self.seed)
         pooled = _pooled_rels(data)
         best = None
         for start in range(int(self.restarts)):
             child = np.random.default_rng(rng.integers(2**63))
-            init = _spectral_labels(pooled, data.n, B, child) if start == 0 else _random_labels(data.n, B, child)
-            labels, _, _ = _greedy(pooled, init, B, child, 50)
+            init = lik.spectral_labels(pooled, data.n, B, child) if start == 0 else lik.random_labels(data.n, B, child)
+            labels, _, _ = lik.greedy_ascent(pooled, init, B, child, 50)
             result = _vem(data, labels, B, child, int(self.max_iter), float(self.tol))
             if best is None or result[2][-1] > best[2][-1]:
                 best = result
@@ -252,7 +243,7 @@ class _Data:
 def _prepare_periods(periods, bernoulli: bool, dc: bool) -> _Data:
     periods = list(periods)
     if not periods:
-        raise UsageError("no period given; pass at least one (actors, matrices, directed) triple")
+        raise ValueError("no period given; pass at least one (actors, matrices, directed) triple")
     position: dict = {}
     index, layers = [], []
     flags0 = None
@@ -260,17 +251,17 @@ def _prepare_periods(periods, bernoulli: bool, dc: bool) -> _Data:
         try:
             actors, matrices, directed = item
         except (TypeError, ValueError):
-            raise UsageError(
+            raise ValueError(
                 f"period {t} is not an (actors, matrices, directed) triple; pass one triple per period"
             ) from None
         actors = [str(a) for a in actors]
         if len(set(actors)) != len(actors):
-            raise UsageError(f"period {t} lists an actor twice; give each present actor once")
-        coos, flags, n_t = _check_matrices(matrices, directed, n=len(actors))
+            raise ValueError(f"period {t} lists an actor twice; give each present actor once")
+        coos, flags, n_t = lik.check_matrices(matrices, directed, n=len(actors))
         if flags0 is None:
             flags0 = flags
         elif flags != flags0:
-            raise UsageError(
+            raise ValueError(
                 f"period {t} has other relations than period 0; "
                 "give every period the same relations in the same order"
             )
@@ -315,7 +306,7 @@ def _pooled_rels(data: _Data) -> list:
             (np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(data.n, data.n)
         )
         pooled.sum_duplicates()
-        rels.append(_make_rel(pooled, data.directed[r], data.n, data.bernoulli, data.dc))
+        rels.append(lik.make_relation(pooled, data.directed[r], data.n, data.bernoulli, data.dc))
     return rels
 
 
@@ -401,34 +392,15 @@ def _propose(data: _Data, state: _State, params: _Params, who: np.ndarray) -> _S
 
 
 def _layer_stats(layer: _Layer, tau: np.ndarray):
-    """Expected block totals ``m`` and exposures ``N`` of one relation in one period.
-
-    ``m = tau^T A tau``; ``N_kl = sum_{i != j} w_i w'_j tau_ik tau_jl`` (plus,
-    with degree correction, the diagonal pair of Karrer & Newman's model).
-    """
-    Atau = layer.A @ tau
-    ATtau = layer.AT @ tau if layer.AT is not None else Atau
-    m = tau.T @ Atau
-    S_out = layer.w_out @ tau
-    S_in = layer.w_in @ tau
-    self_w = layer.w_out * layer.w_in
-    N = np.outer(S_out, S_in) - tau.T @ (self_w[:, None] * tau)
-    if layer.dc:
-        N += np.diag(self_w @ tau)
-    return Atau, ATtau, m, N
+    """Expected block totals ``m`` and exposures ``N`` (see :func:`tracker.models.likelihood.expected_block_stats`)."""
+    return lik.expected_block_stats(layer.A, layer.AT, layer.w_out, layer.w_in, layer.dc, tau)
 
 
 def _all_stats(data: _Data, gamma: np.ndarray) -> list:
     return [[_layer_stats(layer, gamma[t, idx]) for layer in data.layers[t]] for t, idx in enumerate(data.index)]
 
 
-def _link(theta: np.ndarray, bernoulli: bool):
-    """(f1, f2) with the expected log-likelihood ``sum m*f1 + N*f2`` (times coef)."""
-    if bernoulli:
-        p = np.clip(theta, _RATE_FLOOR, 1.0 - 1e-12)
-        return np.log(p) - np.log1p(-p), np.log1p(-p)
-    rate = np.maximum(theta, _RATE_FLOOR)
-    return np.log(rate), -theta
+_link = lik.link_terms
 
 
 def _emissions(data: _Data, state: _State, params: _Params) -> np.ndarray:
