@@ -201,7 +201,7 @@ class Study:
     def fit(
         self,
         *,
-        method: str = "structural",
+        method: str = "dynamic",
         positions: int | str = 4,
         criterion: str = "zero-block",
         alpha: float | None = None,
@@ -233,8 +233,13 @@ class Study:
         """
         from tracker import __version__
         from tracker.blockmodel.fitting import FitSettings
-        from tracker.pipeline.fitting import run_fit
+        from tracker.pipeline.fitting import deprecated_joint, run_fit
 
+        method, options, warning = deprecated_joint(method, dict(options or {}))
+        if warning:
+            import warnings
+
+            warnings.warn(warning, FutureWarning, stacklevel=2)
         settings = FitSettings(
             method=method, positions=positions, criterion=criterion, alpha=alpha, cut=cut, seed=seed,
             relations=tuple(relations) if relations else None, draws=draws, k_min=k_min, k_max=k_max,

@@ -255,8 +255,8 @@ def _split(values) -> list[str] | None:
 
 
 @main.command()
-@click.option("--method", default="structural", show_default=True,
-              help="structural, concor, regular, optimize or sbm.")
+@click.option("--method", default="dynamic", show_default=True,
+              help="dynamic (one Markov blockmodel over all periods), or per period: structural, concor, regular, optimize, sbm.")
 @click.option("--positions", default="4", show_default=True, help="Positions of the tied actors per period, or 'auto'.")
 @click.option("--criterion", default="zero-block", show_default=True,
               type=click.Choice(["zero-block", "one-block", "density", "max-value", "mean-value"]),
@@ -272,9 +272,9 @@ def _split(values) -> list[str] | None:
 @click.option("--measure", type=click.Choice(["euclidean", "correlation"]), help="structural: distance measure.")
 @click.option("--restarts", type=int, help="optimize/sbm: random starts.")
 @click.option("--exact", is_flag=True, help="regular: the exact maximal regular partition (binary data).")
-@click.option("--degree-corrected", is_flag=True, help="sbm: degree-corrected model.")
-@click.option("--model", "sbm_model", type=click.Choice(["poisson", "bernoulli"]), help="sbm: Poisson for event counts (default) or Bernoulli for binary ties.")
-@click.option("--joint", is_flag=True, help="sbm: one dynamic model over all periods (positions mean the same in every period).")
+@click.option("--degree-corrected", is_flag=True, help="sbm/dynamic: degree-corrected model.")
+@click.option("--model", "sbm_model", type=click.Choice(["poisson", "bernoulli"]), help="sbm/dynamic: Poisson for event counts (default) or Bernoulli for binary ties.")
+@click.option("--joint", is_flag=True, help="Deprecated: use --method dynamic.")
 @click.option("--smooth", "smoothing", default="auto", show_default=True,
               help="Penalty (nats) on changing position between consecutive periods: auto, off (each period alone) or a number.")
 @click.pass_context
@@ -301,7 +301,10 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
     if sbm_model:
         options["model"] = sbm_model
     if joint:
-        options["joint"] = True
+        from tracker.pipeline.fitting import deprecated_joint
+
+        method, options, warning = deprecated_joint(method, {**options, "joint": True})
+        click.echo(warning, err=True)
     if smoothing not in ("auto",):
         if smoothing in ("off", "none", "no"):
             smoothing = 0.0
