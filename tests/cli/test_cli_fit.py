@@ -70,7 +70,8 @@ def test_fit_recovers_planted_positions_and_marks_isolates(fitted):
 
 def test_blocks_export_perfect_fit_and_stored_settings(fitted):
     db, truth, tmp = fitted
-    _run(db, "fit", "--positions", "3", "--seed", "3", "--draws", "19")
+    # a per-period descriptive fit (the default is the dynamic model, which has no isolates' position)
+    _run(db, "fit", "--method", "structural", "--positions", "3", "--seed", "3", "--draws", "19")
     blocks = pd.read_csv(io.StringIO(_run(db, "export", "blocks")))
     assert {"period", "relation", "from_position", "to_position", "ties", "possible", "density", "image"} <= set(blocks.columns)
     tied = blocks[(blocks["from_position"] <= 3) & (blocks["to_position"] <= 3)]
@@ -106,7 +107,7 @@ def test_new_settings_keep_older_fits_and_use_fit_switches(fitted):
 
 def test_show_prints_density_and_image_with_sizes(fitted):
     db, _, _ = fitted
-    _run(db, "fit", "--positions", "3", "--draws", "0")
+    _run(db, "fit", "--method", "structural", "--positions", "3", "--draws", "0")  # per-period fits have an isolates' position
     out = _run(db, "show", "2019")
     assert "n=6" in out and "no ties" in out and "coop: density | image" in out
     assert "1.00" in out and "0 inconsistencies" in out
