@@ -249,3 +249,57 @@ def test_usage_errors():
         DynamicSBM(3).fit([(["a", "b"], [A], [False])])  # more positions than actors
     with pytest.raises(ValueError):
         DynamicSBM(2).fit([(["a", "b", "c"], [A], [False])])  # matrix does not fit the actors
+
+
+# ---------------------------------------------------------------- pairwise posteriors
+
+
+def test_pairwise_posterior_matches_enumeration_across_an_absence():
+    # source: brute force of the definition: q(z_s = k, z_t = l) is the sum over every
+    # position path of prior(path) * exp(emissions) with z_s = k, z_t = l, normalised
+    # (Rabiner 1989, eq. 37); the actor is absent in period 2, where it emits nothing
+    from types import SimpleNamespace
+
+    rng = np.random.default_rng(2)
+    T, B = 4, 3
+    E = rng.normal(size=(T, 1, B))
+    E[2] = 0.0  # absent: no emission
+    pi = rng.dirichlet(np.ones(B))
+    P = rng.dirichlet(np.ones(B), size=B)
+    data = SimpleNamespace(first=np.array([0]), last=np.array([T - 1]),
+                           index=[np.array([0]), np.array([0]), np.array([], dtype=int), np.array([0])])
+    previous, pairwise = dyn._pairwise(E, data, pi, P)
+    brute = {1: np.zeros((B, B)), 3: np.zeros((B, B))}
+    for path in itertools.product(range(B), repeat=T):
+        w = pi[path[0]] * np.prod([P[path[t - 1], path[t]] for t in range(1, T)])
+        w *= np.exp(sum(E[t, 0, path[t]] for t in range(T)))
+        brute[1][path[0], path[1]] += w
+        brute[3][path[1], path[3]] += w  # across the absence: previous presence is period 1
+    assert previous[1].tolist() == [0] and previous[3].tolist() == [1] and previous[0].tolist() == [-1]
+    for t in (1, 3):
+        assert np.allclose(pairwise[t][0], brute[t] / brute[t].sum(), atol=1e-12)
+    assert np.isnan(pairwise[0]).all()
+
+
+def test_change_probability_is_consistent_with_marginals_and_finds_a_planted_move():
+    # source: definition: the pairwise posterior's margins are the marginal posteriors;
+    # a planted single move (two clear blocks, an actor switching in period 2) has
+    # change probability near 1 there and near 0 elsewhere (Matias & Miele 2017)
+    rng = np.random.default_rng(5)
+    n, B = 40, 2
+    z = np.repeat([0, 1], n // 2)
+    names = [f"a{i}" for i in range(n)]
+    periods = []
+    for t in range(4):
+        zt = z.copy()
+        if t >= 2:
+            zt[0] = 1
+        periods.append((names, [planted_sbm(zt, B, 12.0, 1.0, rng)], [False]))
+    fit = DynamicSBM(B, seed=1, model="bernoulli").fit(periods)
+    for t in (1, 2, 3):
+        pw = fit.pairwise_[t]
+        assert np.allclose(pw.sum(axis=2), fit.posteriors_[t - 1], atol=1e-6)
+        assert np.allclose(pw.sum(axis=1), fit.posteriors_[t], atol=1e-6)
+    assert fit.change_probability_[2][0] > 0.95
+    others = np.concatenate([fit.change_probability_[t][1:] for t in (1, 2, 3)] + [fit.change_probability_[1][:1]])
+    assert others.max() < 0.05

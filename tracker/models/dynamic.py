@@ -88,6 +88,18 @@ class DynamicSBM:
     rates_ : numpy.ndarray, shape (R, B, B)
         Block parameters per relation, shared by all periods (as in
         :class:`~tracker.blockmodel.sbm.SBMPositions`).
+    pairwise_ : dict int -> numpy.ndarray, shape (n_t, B, B)
+        For period ``t``, each present actor's joint posterior
+        :math:`q(z_s = k, z_t = l)` with ``s`` its previous presence
+        (``previous_[t]``; across absences, the two present periods); NaN
+        where the actor has no earlier presence.
+    previous_ : dict int -> numpy.ndarray of int, shape (n_t,)
+        Index of each present actor's previous presence, ``-1`` for none.
+    change_probability_ : dict int -> numpy.ndarray, shape (n_t,)
+        :math:`1 - \\sum_k q(z_s = k, z_t = k)`: the posterior probability
+        that the actor changed position since its previous presence.
+    icl_ : float
+        Integrated classification likelihood (see :func:`select_dynamic`).
     elbo_ : float
         Evidence lower bound at the optimum (a lower bound of the marginal
         log-likelihood).  ``log_likelihood_`` is the same number.
@@ -109,6 +121,12 @@ class DynamicSBM:
     activity parameters are plug-ins, the actor's degree in the period (the
     maximum-likelihood value when memberships are known, Karrer & Newman
     2011), and only :math:`\\omega` is estimated.
+
+    *Births and ends.*  Positions are not forced to hold actors in every
+    period (unlike a per-period fit with a fixed ``K``): a position may be
+    empty before it is born and after it ends, and the shared block
+    parameters say what it is whenever it is occupied.  An actor absent before
+    it exists has no chain there, so its arrival is not a move.
 
     *Fit.*  Variational EM with a structured mean field (Matias & Miele 2017):
     :math:`q(Z) = \\prod_i q_i(z_{i,f_i..l_i})`, each :math:`q_i` a Markov
@@ -194,7 +212,11 @@ class DynamicSBM:
 
     def _set_results(self, data, state, params, history, n_iter, B) -> None:
         self.actors_ = data.actors
-        self.posteriors_ = {t: state.gamma[t, idx].copy() for t, idx in enumerate(data.index)}
+        # one last forward-backward pass at the final parameters, so that marginals and
+        # pairwise posteriors come from the same chain posterior
+        E = _emissions(data, state, params)
+        gamma = _forward_backward(E, data.first, data.last, params.pi, params.P)[0]
+        self.posteriors_ = {t: gamma[t, idx].copy() for t, idx in enumerate(data.index)}
         self.labels_ = {t: post.argmax(axis=1) for t, post in self.posteriors_.items()}
         self.initial_ = params.pi.copy()
         self.transition_ = params.P.copy()
@@ -203,7 +225,6 @@ class DynamicSBM:
         self.log_likelihood_ = self.elbo_
         self.history_ = [float(v) for v in history]
         self.n_iter_ = int(n_iter)
-        E = _emissions(data, state, params)
         self.previous_, self.pairwise_ = _pairwise(E, data, params.pi, params.P)
         self.change_probability_ = {
             t: np.where(self.previous_[t] >= 0, 1.0 - np.trace(pw, axis1=1, axis2=2), np.nan)
