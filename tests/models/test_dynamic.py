@@ -303,3 +303,25 @@ def test_change_probability_is_consistent_with_marginals_and_finds_a_planted_mov
     assert fit.change_probability_[2][0] > 0.95
     others = np.concatenate([fit.change_probability_[t][1:] for t in (1, 2, 3)] + [fit.change_probability_[1][:1]])
     assert others.max() < 0.05
+
+
+@pytest.mark.parametrize("snr, low, high", [(0.03, -0.05, 0.1), (0.7, 0.4, 1.0), (3.0, 0.9, 1.0)])
+def test_recovery_below_near_and_above_the_dynamic_detectability_limit(snr, low, high):
+    # source: Ghasemian, Zhang, Clauset, Moore & Peel (2016), Phys. Rev. X 6, 031005: for two
+    # groups, stay probability eta and T -> infinity, positions are detectable iff
+    # c lambda^2 > (1 - eta^2) / (1 + eta^2) = 0.105 at eta = 0.9 (their eq. for the
+    # dynamic limit, from memory).  Below it (0.03) no method recovers them (mean ARI ~ 0);
+    # near it (0.7: below the one-period limit 1, where each period alone is undetectable)
+    # recovery is partial but real; far above (3.0) it is near perfect.  Measured with
+    # n = 300, 6 periods, seed 11: ARI 0.00, 0.61, 0.99+.  At this finite size variational EM
+    # still fails at 0.5 (ARI 0.00): the finite-size algorithmic threshold lies above the
+    # asymptotic limit, so "near" here means within a factor of 7.
+    rng = np.random.default_rng(11)
+    n, T, B, c = 300, 6, 2, 8.0
+    lam = np.sqrt(snr / c)
+    zs = markov_positions(n, T, B, 0.9, rng)
+    mats = [planted_sbm(z, B, c * (1 + lam), c * (1 - lam), rng) for z in zs]
+    names = [f"a{i}" for i in range(n)]
+    fit = DynamicSBM(B, restarts=2).fit([(names, [A], [False]) for A in mats])
+    ari = np.mean([adjusted_rand_score(z, fit.labels_[t]) for t, z in enumerate(zs)])
+    assert low <= ari <= high, ari
