@@ -81,3 +81,14 @@ def test_pipeline_helpers():
     moves = pd.DataFrame({"actor": ["a", "b"], "to_period": ["2", "2"]})
     conf = dynamic_move_confidence(fp, moves)
     assert conf[0] == 0.7 and np.isnan(conf[1])
+
+
+def test_dynamic_fit_refuses_a_subset_of_periods_and_records_no_smoothing(tmp_path):
+    _events(tmp_path / "e.csv")
+    with Study(tmp_path / "s.db") as study:
+        study.import_events(tmp_path / "e.csv", source="a", target="b", date="d", undirected=True)
+        with pytest.raises(UsageError, match="all periods together"):
+            study.fit(positions=2, draws=0, periods=["2019"])
+        assert study.fits().empty  # the store is unchanged
+        study.fit(positions=2, draws=0)
+        assert study.fit_info()["params"]["smoothing"] == 0.0

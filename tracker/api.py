@@ -224,6 +224,13 @@ class Study:
         periods) or refreshes it; other settings make a new fit.  Either way
         the fit becomes current.
 
+        The default ``method="dynamic"`` fits one dynamic blockmodel over
+        the periods (Markov positions; see README "The default pipeline" and
+        :func:`tracker.pipeline.fitting.fit_dynamic`); its moves' confidence is
+        the posterior probability of a change.  The old ``options={"joint":
+        True}`` still works, with a ``FutureWarning``, as ``method="dynamic"``.
+
+        For the descriptive methods,
         ``smoothing`` (default ``"auto"``) fits the periods together, paying a
         penalty for each change of position between consecutive periods
         (evolutionary clustering; see :attr:`FitSettings.smoothing` for the
@@ -240,6 +247,8 @@ class Study:
             import warnings
 
             warnings.warn(warning, FutureWarning, stacklevel=2)
+        if method == "dynamic" and smoothing == "auto":
+            smoothing = 0.0  # the chain links the periods; record that no smoothing penalty ran
         settings = FitSettings(
             method=method, positions=positions, criterion=criterion, alpha=alpha, cut=cut, seed=seed,
             relations=tuple(relations) if relations else None, draws=draws, k_min=k_min, k_max=k_max,

@@ -36,6 +36,9 @@ def run_fit(store, settings, labels: list[str], progress: Callable[[str], None] 
 
     results = []
     if is_dynamic(settings):
+        if list(labels) != store.period_labels():
+            raise UsageError("the dynamic model fits all periods together (a position is the same in every "
+                             "period); drop --periods, or choose a per-period method such as --method structural")
         results = fit_dynamic(list(store.snapshots(labels, settings.relations)), settings)
         if progress is not None:
             for period in labels:
