@@ -17,6 +17,16 @@ identifiability up to one relabelling of the positions for all periods; the
 price is that a position whose pattern of ties really changes over the years
 is described as actors moving between fixed positions.
 
+What the model gives, per period: the most probable position of each present
+actor, the marginal posteriors :math:`q(z_t = k)`, and the pairwise posteriors
+:math:`q(z_s = k, z_t = l)` between an actor's consecutive presences (``s = t - 1``
+or, across absences, its previous present period), from which the probability
+that the actor changed position is :math:`1 - \\sum_k q(z_s = k, z_t = k)`.
+Positions may be empty in some periods (born later, or ended); actors absent
+from a period emit nothing there while their chain runs on; a present actor
+without ties is evidence (of a quiet position).  The number of positions is
+chosen by ICL (:func:`select_dynamic`).
+
 References
 ----------
 .. [1] Matias, C. & Miele, V. (2017). Statistical clustering of temporal
