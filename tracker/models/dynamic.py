@@ -44,6 +44,7 @@ References
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 from typing import Sequence
 
@@ -56,7 +57,8 @@ from tracker.models import likelihood as lik
 
 __all__ = ["DynamicSBM", "select_dynamic"]
 
-_PROB_FLOOR = 1e-10  # keeps the forward recursion away from exact zeros
+_PROB_FLOOR = 1e-10
+_BIRTH_EVICT = 3.0  # most actor-periods a birth may move out of a position  # keeps the forward recursion away from exact zeros
 
 
 class DynamicSBM:
@@ -182,6 +184,7 @@ class DynamicSBM:
         max_iter: int = 100,
         tol: float = 1e-6,
         restarts: int = 3,
+        births: bool = True,
     ) -> None:
         self.n_positions = n_positions
         self.seed = seed
@@ -190,6 +193,7 @@ class DynamicSBM:
         self.max_iter = max_iter
         self.tol = tol
         self.restarts = restarts
+        self.births = births
 
     def fit(self, periods: Sequence[tuple]) -> "DynamicSBM":
         """Fit to a list of periods in time order.
@@ -217,7 +221,14 @@ class DynamicSBM:
         results = map_tasks(_one_start, tasks, label="dynamic model starts")
         best = max(results, key=lambda r: r[2][-1])  # first of equal bounds: same answer whatever the workers
         state, params, history, n_iter = best
+        births = np.zeros(B, dtype=np.int64)
+        if self.births and data.T > 1:
+            rng = np.random.default_rng(task_seeds(int(self.seed), int(self.restarts) + 1)[-1])
+            state, params, history, births = _choose_births(data, state, params, B, rng, int(self.max_iter),
+                                                            float(self.tol), history)
         self._set_results(data, state, params, history, n_iter, B)
+        self.births_ = births
+        self.icl_ -= float((births > 0).sum()) * np.log(max(data.T - 1, 1))
         return self
 
     def _set_results(self, data, state, params, history, n_iter, B) -> None:
@@ -225,7 +236,7 @@ class DynamicSBM:
         # one last forward-backward pass at the final parameters, so that marginals and
         # pairwise posteriors come from the same chain posterior
         E = _emissions(data, state, params)
-        gamma = _forward_backward(E, data.first, data.last, params.pi, params.P)[0]
+        gamma = _forward_backward(E, data.first, data.last, params.pi, params.P, params.active)[0]
         self.posteriors_ = {t: gamma[t, idx].copy() for t, idx in enumerate(data.index)}
         self.labels_ = {t: post.argmax(axis=1) for t, post in self.posteriors_.items()}
         self.initial_ = params.pi.copy()
@@ -235,7 +246,7 @@ class DynamicSBM:
         self.log_likelihood_ = self.elbo_
         self.history_ = [float(v) for v in history]
         self.n_iter_ = int(n_iter)
-        self.previous_, self.pairwise_ = _pairwise(E, data, params.pi, params.P)
+        self.previous_, self.pairwise_ = _pairwise(E, data, params.pi, params.P, params.active)
         self.change_probability_ = {
             t: np.where(self.previous_[t] >= 0, 1.0 - np.trace(pw, axis1=1, axis2=2), np.nan)
             for t, pw in self.pairwise_.items()
@@ -421,6 +432,28 @@ class _Params:
     pi: np.ndarray
     P: np.ndarray
     theta: np.ndarray  # (R, B, B)
+    active: np.ndarray | None = None  # (T, B): position k open in period t (None: all open)
+
+
+def _chain_laws(pi, P, active, T: int):
+    """Entry laws per period (T, B) and transition matrices into each period (T, B, B).
+
+    A position closed in period ``t`` (not yet born) can be neither entered
+    nor started in: :math:`\\pi_t(k) \\propto \\pi(k) a_{tk}`,
+    :math:`P_t(j, l) \\propto P(j, l) a_{tl}` (rows renormalised).
+    """
+    B = pi.size
+    if active is None:
+        return np.broadcast_to(pi, (T, B)), np.broadcast_to(P, (T, B, B))
+    pis = pi[None, :] * active
+    pis = pis / pis.sum(axis=1, keepdims=True)
+    Ps = P[None, :, :] * active[:, None, :]
+    Ps = Ps / Ps.sum(axis=2, keepdims=True)
+    return pis, Ps
+
+
+def _log(x):
+    return np.log(np.maximum(x, 1e-300))
 
 
 @dataclass
@@ -438,15 +471,20 @@ def _vem(data: _Data, labels: np.ndarray, B: int, rng, max_iter: int, tol: float
     sizes = np.bincount(labels, minlength=B) + 1.0
     stay = 0.9  # a sticky but not rigid start for the chain
     params = _Params(sizes / sizes.sum(), stay * np.eye(B) + (1 - stay) / B, _theta(data, state))
-    # the first E-step moves from hard starting labels to a proper chain posterior
+    return _em_loop(data, state, params, B, rng, max_iter, tol)
+
+
+def _em_loop(data: _Data, state: _State, params: _Params, B: int, rng, max_iter: int, tol: float):
+    """EM from a state and parameters (``params.active`` is kept fixed)."""
+    # the first E-step moves from the given memberships to a proper chain posterior
     state = _propose(data, state, params, np.arange(data.n))
-    params = _m_step(data, state, B)
+    params = _m_step(data, state, B, params.active)
     history = [_elbo(data, state, params)]
     n_iter = 0
     while n_iter < max_iter:
         n_iter += 1
         state, value = _e_step(data, state, params, history[-1], rng)
-        updated = _m_step(data, state, B)
+        updated = _m_step(data, state, B, params.active)
         after = _elbo(data, state, updated)
         if after >= value:  # exact M-step; only the probability floors could make it fall
             params, value = updated, after
@@ -454,6 +492,47 @@ def _vem(data: _Data, labels: np.ndarray, B: int, rng, max_iter: int, tol: float
         if value - history[-2] <= tol * abs(history[-2]):
             break
     return state, params, history, n_iter
+
+
+def _choose_births(data: _Data, state: _State, params: _Params, B: int, rng, max_iter: int, tol: float,
+                   history: list):
+    """Give each position a birth period where the data prefer one (see the class Notes).
+
+    For each position ``k`` (in order) and each candidate birth ``b`` such
+    that at most ``_BIRTH_EVICT`` actor-periods of posterior mass sit in
+    ``k`` before ``b``, EM is rerun from the current fit with ``k`` closed
+    before ``b``; the best bound wins if it beats the open position by more
+    than ``log(T - 1)``: the posterior odds under a prior that gives
+    probability 1/2 to "open from the start" and spreads the other half
+    evenly over the ``T - 1`` later birth periods (a Bayes factor approximated
+    by the bound; Kass & Raftery 1995).  Returns ``(state, params, history,
+    births)``.
+    """
+    T = data.T
+    active = np.ones((T, B), dtype=bool) if params.active is None else params.active.copy()
+    cost = np.log(max(T - 1, 1))
+    births = np.zeros(B, dtype=np.int64)
+    current = history[-1]
+    for k in range(B):
+        occupancy = np.array([state.gamma[t, idx, k].sum() for t, idx in enumerate(data.index)])
+        before = np.concatenate([[0.0], np.cumsum(occupancy)])[:-1]
+        best = None
+        for b in range(1, T):
+            if before[b] > _BIRTH_EVICT or occupancy[b:].sum() < 0.5:
+                continue
+            trial = active.copy()
+            trial[:b, k] = False
+            if (trial.sum(axis=1) == 0).any():
+                continue
+            result = _em_loop(data, state, dataclasses.replace(params, active=trial), B, rng, max_iter, tol)
+            if best is None or result[2][-1] > best[0][2][-1]:
+                best = (result, b, trial)
+        if best is not None and best[0][2][-1] - current > cost:
+            (state, params, more, _), b, active = best
+            history = history + more
+            current = history[-1]
+            births[k] = b
+    return state, params, history, births
 
 
 def _e_step(data, state, params, current, rng):
@@ -484,7 +563,7 @@ def _e_step(data, state, params, current, rng):
 def _propose(data: _Data, state: _State, params: _Params, who: np.ndarray) -> _State:
     """New chains for actors ``who``, each the HMM posterior given everyone else."""
     E = _emissions(data, state, params)
-    gamma, xi, g0, entropy = _forward_backward(E, data.first, data.last, params.pi, params.P)
+    gamma, xi, g0, entropy = _forward_backward(E, data.first, data.last, params.pi, params.P, params.active)
     new_gamma = state.gamma.copy()
     new_gamma[:, who] = gamma[:, who]
     new_xi, new_g0, new_h = state.xi.copy(), state.g0.copy(), state.entropy.copy()
@@ -530,7 +609,7 @@ def _emissions(data: _Data, state: _State, params: _Params) -> np.ndarray:
     return E
 
 
-def _passes(E, first, last, pi, P):
+def _passes(E, first, last, pi, P, active=None):
     """Scaled forward and backward passes of every actor's chain at once.
 
     Absent periods inside an actor's span have zero emission log-terms, so
@@ -539,26 +618,32 @@ def _passes(E, first, last, pi, P):
     messages), ``em`` (emissions over their per-(t, i) maximum ``shift``) and
     the forward normalisers ``scale``.
     """
+    with np.errstate(invalid="ignore", divide="ignore"):  # periods outside a chain are inert, masked later
+        return _passes_inner(E, first, last, pi, P, active)
+
+
+def _passes_inner(E, first, last, pi, P, active):
     T, n, B = E.shape
+    pis, Ps = _chain_laws(pi, P, active, T)
     shift = E.max(axis=2)
     em = np.exp(E - shift[:, :, None])
     alpha = np.empty((T, n, B))
     scale = np.ones((T, n))
     for t in range(T):
-        prior = np.broadcast_to(pi, (n, B)) if t == 0 else alpha[t - 1] @ P
-        prior = np.where((first == t)[:, None], pi[None, :], prior)
+        prior = np.broadcast_to(pis[t], (n, B)) if t == 0 else alpha[t - 1] @ Ps[t]
+        prior = np.where((first == t)[:, None], pis[t][None, :], prior)
         a = prior * em[t]
         scale[t] = a.sum(axis=1)
         alpha[t] = a / scale[t][:, None]
     beta = np.ones((T, n, B))
     for t in range(T - 2, -1, -1):
-        back = (em[t + 1] * beta[t + 1] / scale[t + 1][:, None]) @ P.T
+        back = (em[t + 1] * beta[t + 1] / scale[t + 1][:, None]) @ Ps[t + 1].T
         run = (t >= first) & (t < last)
         beta[t] = np.where(run[:, None], back, 1.0)
     return alpha, beta, em, scale, shift
 
 
-def _forward_backward(E, first, last, pi, P):
+def _forward_backward(E, first, last, pi, P, active=None):
     """Forward-backward for every actor's chain at once (see :func:`_passes`).
 
     Returns marginals ``gamma`` (T, n, B), summed pairwise marginals
@@ -569,25 +654,29 @@ def _forward_backward(E, first, last, pi, P):
     """
     T, n, B = E.shape
     ts = np.arange(T)[:, None]
-    active = (ts >= first[None, :]) & (ts <= last[None, :])  # (T, n)
-    alpha, beta, em, scale, shift = _passes(E, first, last, pi, P)
+    running = (ts >= first[None, :]) & (ts <= last[None, :])  # (T, n)
+    alpha, beta, em, scale, shift = _passes(E, first, last, pi, P, active)
+    pis, Ps = _chain_laws(pi, P, active, T)
     gamma = alpha * beta
     gamma /= gamma.sum(axis=2, keepdims=True)
     xi = np.zeros((n, B, B))
+    g0 = gamma[first, np.arange(n)]
+    expected_prior = (g0 * _log(pis[first])).sum(axis=1)
     for t in range(1, T):
         sel = np.flatnonzero((t > first) & (t <= last))
         if sel.size:
             right = em[t, sel] * beta[t, sel] / scale[t, sel][:, None]
-            xi[sel] += alpha[t - 1, sel][:, :, None] * P[None, :, :] * right[:, None, :]
-    g0 = gamma[first, np.arange(n)]
-    log_z = np.where(active, np.log(scale) + shift, 0.0).sum(axis=0)
-    expected_prior = g0 @ np.log(pi) + np.einsum("ikl,kl->i", xi, np.log(P))
-    expected_emission = np.where(active[:, :, None], gamma * E, 0.0).sum(axis=(0, 2))
+            step = alpha[t - 1, sel][:, :, None] * Ps[t][None, :, :] * right[:, None, :]
+            xi[sel] += step
+            expected_prior[sel] += np.einsum("ikl,kl->i", step, _log(Ps[t]))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        log_z = np.where(running, np.log(scale) + shift, 0.0).sum(axis=0)
+    expected_emission = np.where(running[:, :, None], gamma * E, 0.0).sum(axis=(0, 2))
     entropy = log_z - expected_prior - expected_emission
     return gamma, xi, g0, entropy
 
 
-def _pairwise(E, data: _Data, pi, P):
+def _pairwise(E, data: _Data, pi, P, active=None):
     """Pairwise posteriors between each actor's consecutive presences.
 
     For actor ``i`` present in period ``t`` whose previous presence is ``s``
@@ -604,8 +693,9 @@ def _pairwise(E, data: _Data, pi, P):
     previous period index (``-1`` for none) and an ``(n_t, B, B)`` array (NaN
     where there is no previous presence).
     """
-    alpha, beta, em, _, _ = _passes(E, data.first, data.last, pi, P)
+    alpha, beta, em, _, _ = _passes(E, data.first, data.last, pi, P, active)
     T, n, B = E.shape
+    _, Ps = _chain_laws(pi, P, active, T)
     present = np.zeros((T, n), dtype=bool)
     for t, idx in enumerate(data.index):
         present[t, idx] = True
@@ -615,14 +705,14 @@ def _pairwise(E, data: _Data, pi, P):
     for t, idx in enumerate(data.index):
         prev = last_seen[idx].copy()
         pw = np.full((idx.size, B, B), np.nan)
-        for gap in np.unique(t - prev[prev >= 0]):
-            if gap not in powers:
-                powers[gap] = np.linalg.matrix_power(P, int(gap))
-            rows = np.flatnonzero((prev >= 0) & (t - prev == gap))
+        for s in np.unique(prev[prev >= 0]):
+            if (s, t) not in powers:  # the chain's law from s to t: P_{s+1} ... P_t
+                powers[(s, t)] = np.linalg.multi_dot([np.eye(B), *Ps[s + 1: t + 1]])
+            rows = np.flatnonzero(prev == s)
             who = idx[rows]
-            left = alpha[t - gap, who]
+            left = alpha[s, who]
             right = em[t, who] * beta[t, who]
-            joint = left[:, :, None] * powers[gap][None, :, :] * right[:, None, :]
+            joint = left[:, :, None] * powers[(s, t)][None, :, :] * right[:, None, :]
             pw[rows] = joint / joint.sum(axis=(1, 2), keepdims=True)
         previous[t], pairwise[t] = prev, pw
         last_seen[idx] = t
@@ -654,7 +744,7 @@ def _theta(data: _Data, state: _State) -> np.ndarray:
     return np.clip(theta, 0.0, 1.0) if data.bernoulli else theta
 
 
-def _m_step(data: _Data, state: _State, B: int) -> _Params:
+def _m_step(data: _Data, state: _State, B: int, active=None) -> _Params:
     pi = state.g0.sum(axis=0)
     pi = np.maximum(pi / pi.sum(), _PROB_FLOOR)
     pi /= pi.sum()
@@ -663,7 +753,7 @@ def _m_step(data: _Data, state: _State, B: int) -> _Params:
     P = np.where(rows > 0, counts / np.where(rows > 0, rows, 1.0), 1.0 / B)
     P = np.maximum(P, _PROB_FLOOR)
     P /= P.sum(axis=1, keepdims=True)
-    return _Params(pi, P, _theta(data, state))
+    return _Params(pi, P, _theta(data, state), active)
 
 
 def _elbo(data: _Data, state: _State, params: _Params) -> float:
@@ -672,6 +762,14 @@ def _elbo(data: _Data, state: _State, params: _Params) -> float:
         + np.einsum("ikl,kl->", state.xi, np.log(params.P))
         + state.entropy.sum()
     )
+    if params.active is not None:
+        # log P_t(k, l) = log P(k, l) - log Z_t(k) where the chain may go (see _chain_laws)
+        a = params.active
+        chain -= np.log((params.pi[None, :] * a).sum(axis=1))[data.first].sum()
+        for t in range(1, data.T):
+            sel = (t > data.first) & (t <= data.last)
+            if sel.any():
+                chain -= state.gamma[t - 1, sel].sum(axis=0) @ np.log(params.P @ a[t])
     fit = 0.0
     for t in range(data.T):
         for r, layer in enumerate(data.layers[t]):
