@@ -529,7 +529,7 @@ def _choose_births(data: _Data, state: _State, params: _Params, B: int, rng, max
                 best = (result, b, trial)
         if best is not None and best[0][2][-1] - current > cost:
             (state, params, more, _), b, active = best
-            history = history + more
+            history = history + [more[-1]]  # the accepted birth raises the bound by more than its cost
             current = history[-1]
             births[k] = b
     return state, params, history, births
