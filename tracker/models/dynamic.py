@@ -77,6 +77,9 @@ class DynamicSBM:
         Cap on EM iterations per start.
     tol : float, default 1e-6
         Stop when the bound rises by less than ``tol * |bound|``.
+    births : bool, default True
+        Let positions be born mid-series (closed in the entry and transition
+        laws before their birth period; see :func:`_choose_births`).
     restarts : int, default 3
         Starts: the first from a blockmodel of all periods pooled (spectral
         start, see :class:`~tracker.blockmodel.sbm.SBMPositions`), the others

@@ -59,7 +59,7 @@ def run_fit(store, settings, labels: list[str], progress: Callable[[str], None] 
 
 DYNAMIC = "dynamic"
 # options of the dynamic model, and the ones it refuses (with what to do instead)
-_DYNAMIC_OPTIONS = ("model", "degree_corrected", "restarts", "max_iter", "tol")
+_DYNAMIC_OPTIONS = ("model", "degree_corrected", "restarts", "max_iter", "tol", "births")
 
 
 def is_dynamic(settings_or_params) -> bool:
