@@ -270,7 +270,7 @@ class Study:
     def fit(
         self,
         *,
-        method: str = "structural",
+        method: str = "dynamic",
         positions: int | str = 4,
         criterion: str = "zero-block",
         alpha: float | None = None,
@@ -297,6 +297,13 @@ class Study:
         periods) or refreshes it; other settings make a new fit.  Either way
         the fit becomes current.
 
+        The default ``method="dynamic"`` fits one dynamic blockmodel over
+        the periods (Markov positions; see README "The default pipeline" and
+        :func:`tracker.pipeline.fitting.fit_dynamic`); its moves' confidence is
+        the posterior probability of a change.  The old ``options={"joint":
+        True}`` still works, with a ``FutureWarning``, as ``method="dynamic"``.
+
+        For the descriptive methods,
         ``smoothing`` (default ``"auto"``) fits the periods together, paying a
         penalty for each change of position between consecutive periods
         (evolutionary clustering; see :attr:`FitSettings.smoothing` for the
@@ -307,11 +314,19 @@ class Study:
         from tracker import __version__
         from tracker.blockmodel.fitting import FitSettings
         from tracker.blockmodel.options import check_request
-        from tracker.pipeline.fitting import run_fit
+        from tracker.pipeline.fitting import deprecated_joint, run_fit
 
         k_range_given = k_min is not None or k_max is not None
         smoothing_given = smoothing not in (None, "auto")
         smoothing = "auto" if smoothing is None else smoothing
+
+        method, options, warning = deprecated_joint(method, dict(options or {}))
+        if warning:
+            import warnings as python_warnings
+
+            python_warnings.warn(warning, FutureWarning, stacklevel=2)
+        if method == "dynamic" and smoothing == "auto":
+            smoothing = 0.0  # the chain links the periods; record that no smoothing penalty ran
         settings = FitSettings(
             method=method, positions=positions, criterion=criterion, alpha=alpha, cut=cut, seed=seed,
             relations=tuple(relations) if relations else None, draws=draws,

@@ -366,10 +366,11 @@ def _split(values) -> list[str] | None:
 
 
 @main.command()
-@click.option("--method", default="structural", show_default=True,
-              help="How to find positions: structural (same ties to the same others), concor (repeated correlations), "
-                   "regular (ties to the same kinds of others), optimize (fewest inconsistencies) or sbm (a statistical "
-                   "model: stochastic blockmodel).")
+@click.option("--method", default="dynamic", show_default=True,
+              help="How to find positions: dynamic (one statistical model over all periods in which each actor's "
+                   "position can change from period to period: a dynamic stochastic blockmodel), or period by period: "
+                   "structural (same ties to the same others), concor (repeated correlations), regular (ties to the "
+                   "same kinds of others), optimize (fewest inconsistencies) or sbm (stochastic blockmodel).")
 @click.option("--positions", default="4", show_default=True,
               help="How many positions to find among the actors with ties in each period, or 'auto' to choose from the "
                    "data (actors without ties get a position of their own).")
@@ -411,13 +412,12 @@ def _split(values) -> list[str] | None:
               help="regular: put actors together only when their kinds of ties match exactly (the maximal regular "
                    "partition; ties present or absent).")
 @click.option("--degree-corrected", is_flag=True,
-              help="sbm: allow actors of one position to differ in how many ties they have, so very active actors do not"
+              help="sbm, dynamic: allow actors of one position to differ in how many ties they have, so very active actors do not"
                    " get a position of their own (degree correction).")
 @click.option("--model", "sbm_model", type=click.Choice(["poisson", "bernoulli"]),
-              help="sbm: poisson for counts of events (default) or bernoulli for ties that are simply present or absent.")
+              help="sbm, dynamic: poisson for counts of events (default) or bernoulli for ties that are simply present or absent.")
 @click.option("--joint", is_flag=True,
-              help="sbm: one model over all periods, so that position k means the same in every period (dynamic "
-                   "stochastic blockmodel).")
+              help="Deprecated: use --method dynamic (one model over all periods).")
 @click.option("--smooth", "smoothing", default=None,
               help="How strongly to resist changes of position from one period to the next (change penalty, in nats): "
                    "auto, off (fit each period alone) or a number; higher means fewer, surer moves [default: auto].")
@@ -449,7 +449,10 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
     if sbm_model:
         options["model"] = sbm_model
     if joint:
-        options["joint"] = True
+        from tracker.pipeline.fitting import deprecated_joint
+
+        method, options, warning = deprecated_joint(method, {**options, "joint": True})
+        click.echo(warning, err=True)
     if smoothing not in (None, "auto"):
         if smoothing in ("off", "none", "no"):
             smoothing = 0.0

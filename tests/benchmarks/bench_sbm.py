@@ -29,7 +29,7 @@ from sklearn.metrics import adjusted_rand_score
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from tracker.blockmodel.sbm import SBMPositions  # noqa: E402
-from tracker.blockmodel.sbm_dynamic import DynamicSBM  # noqa: E402
+from tracker.models.dynamic import DynamicSBM  # noqa: E402
 
 
 def planted_period(z: np.ndarray, B: int, c_in: float, c_out: float, rng) -> sp.csr_array:

@@ -11,7 +11,7 @@ from hypothesis import strategies as st
 from scipy.special import gammaln, xlogy
 from sklearn.metrics import adjusted_rand_score
 
-from tracker.blockmodel import sbm
+from tracker.models import likelihood as lik
 from tracker.blockmodel.sbm import SBMPositions, log_likelihood, select_positions
 from tracker.errors import UsageError
 from tests.helpers.planted import planted_sbm
@@ -105,8 +105,8 @@ def test_move_gains_equal_brute_force_differences(graph, variant):
     # source: brute force (log-likelihood after each single move minus before)
     A, directed, z, B = graph
     model, dc = variant
-    rels, n = sbm._prepare([sp.csr_array(A)], [directed], model, dc)
-    gains = sbm._move_gains(rels, z, B)
+    rels, n = lik.prepare([sp.csr_array(A)], [directed], model, dc)
+    gains = lik.move_gains(rels, z, B)
     base = dense_log_likelihood(A, directed, z, B, model, dc)
     for i in range(n):
         for b in range(B):

@@ -41,7 +41,8 @@ def test_align_finds_the_planted_move_and_keeps_earlier_tracks(tmp_path, new_db)
     moving_events(tmp_path / "early.csv", years=(2016, 2017, 2018))
     db = new_db("s.db")
     _run(db, "import", str(tmp_path / "early.csv"), "--source", "a", "--target", "b", "--date", "d")
-    _run(db, "fit", "--positions", "2", "--draws", "0")
+    # incremental alignment of a per-period fit (a dynamic fit is refitted and re-aligned whole)
+    _run(db, "fit", "--method", "structural", "--positions", "2", "--draws", "0")
     out = _run(db, "align", "--draws", "10")
     assert "3 periods aligned (3 new)" in out
     moves = pd.read_csv(io.StringIO(_run(db, "moves", "--format", "csv")))
@@ -54,7 +55,7 @@ def test_align_finds_the_planted_move_and_keeps_earlier_tracks(tmp_path, new_db)
     # next year's events arrive: import, fit that period, align again
     moving_events(tmp_path / "later.csv", years=(2019,))
     _run(db, "import", str(tmp_path / "later.csv"), "--source", "a", "--target", "b", "--date", "d")
-    _run(db, "fit", "--positions", "2", "--draws", "0", "--periods", "2019")
+    _run(db, "fit", "--method", "structural", "--positions", "2", "--draws", "0", "--periods", "2019")
     assert "4 periods aligned (1 new)" in _run(db, "align", "--draws", "0")
     after = pd.read_csv(io.StringIO(_run(db, "export", "memberships")))
     earlier = after[after["period"] < 2019].reset_index(drop=True)
@@ -126,7 +127,12 @@ def test_joint_sbm_fit_gives_posterior_confidence(tmp_path, new_db):
     moving_events(tmp_path / "e.csv")
     db = new_db("s.db")
     _run(db, "import", str(tmp_path / "e.csv"), "--source", "a", "--target", "b", "--date", "d")
-    _run(db, "fit", "--method", "sbm", "--joint", "--positions", "2", "--model", "bernoulli", "--draws", "0")
+    result = CliRunner().invoke(main, ["--db", str(db), "fit", "--method", "sbm", "--joint", "--positions", "2",
+                                       "--model", "bernoulli", "--draws", "0"], catch_exceptions=False)
+    assert result.exit_code == 0 and "deprecated" in result.output and "--method dynamic" in result.output
+    with Study(db, create=False) as study:
+        assert study.fit_info()["params"]["method"] == "dynamic"  # what actually ran
+        assert study.fit_info()["params"]["options"] == {"model": "bernoulli"}
     members = pd.read_csv(io.StringIO(_run(db, "export", "memberships")))
     assert members["confidence"].between(0, 1).all()
     _run(db, "align")

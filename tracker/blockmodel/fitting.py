@@ -35,7 +35,9 @@ class FitSettings:
     Attributes
     ----------
     method : str
-        A method name of :data:`tracker.blockmodel.positions.METHODS`.
+        ``"dynamic"`` (the default: one dynamic blockmodel over all periods,
+        :func:`tracker.pipeline.fitting.fit_dynamic`) or a method name of
+        :data:`tracker.blockmodel.positions.METHODS` (fitted period by period).
     positions : int or "auto"
         Positions of the tied actors (the isolates' position comes on top).
     criterion : str
@@ -70,7 +72,7 @@ class FitSettings:
         SBM fits, which link periods themselves.
     """
 
-    method: str = "structural"
+    method: str = "dynamic"
     positions: int | str = 4
     criterion: str = "zero-block"
     alpha: float | None = None
@@ -202,6 +204,6 @@ def _plain(value):
 
 def smoothing_applies(settings: FitSettings) -> bool:
     """Whether a fit is smoothed across periods (see :attr:`FitSettings.smoothing`)."""
-    if settings.options.get("joint") or settings.method == "regular":
+    if settings.options.get("joint") or settings.method in ("regular", "dynamic"):
         return False
     return settings.smoothing == "auto" or float(settings.smoothing) > 0

@@ -2,7 +2,7 @@
 
 The API (:meth:`tracker.api.Study.fit`) builds one
 :class:`tracker.blockmodel.fitting.FitSettings`, and :func:`run_fit` chooses
-how the periods are fitted: one joint dynamic model, smoothed across periods,
+how the periods are fitted: one dynamic model over all periods, smoothed across periods,
 or each period alone.  Functions here read from the store and call pure
 maths; they never write (the API stores the result).
 """
@@ -17,7 +17,18 @@ import pandas as pd
 
 from tracker.errors import UsageError
 
-__all__ = ["run_fit", "fit_joint", "frozen_prefix", "period_selection", "with_fit_tests", "with_q_values"]
+__all__ = ["run_fit", "deprecated_joint", "fit_dynamic", "is_dynamic", "check_dynamic", "frozen_prefix",
+           "period_selection", "with_fit_tests", "with_q_values"]
+
+
+def deprecated_joint(method: str, options: dict) -> tuple[str, dict, str | None]:
+    """``(method, options, warning)``: the old ``joint`` option becomes the ``dynamic`` method."""
+    if not options.get("joint"):
+        return method, options, None
+    if method not in ("sbm", DYNAMIC):
+        raise UsageError(f"--joint was the dynamic blockmodel, not a {method} fit; use --method dynamic")
+    rest = {k: v for k, v in options.items() if k != "joint"}
+    return DYNAMIC, rest, "--joint is deprecated: it is now its own method; use --method dynamic"
 
 
 def run_fit(store, settings, labels: list[str], progress: Callable[[str], None] | None = None) -> list:
@@ -33,8 +44,11 @@ def run_fit(store, settings, labels: list[str], progress: Callable[[str], None] 
     from tracker.execution import map_tasks
 
     tick = _period_ticks(labels, progress)
-    if settings.options.get("joint"):
-        results = fit_joint(list(store.snapshots(labels, settings.relations)), settings)
+    if is_dynamic(settings):
+        if list(labels) != store.period_labels():
+            raise UsageError("the dynamic model fits all periods together (a position is the same in every "
+                             "period); drop --periods, or choose a per-period method such as --method structural")
+        results = fit_dynamic(list(store.snapshots(labels, settings.relations)), settings)
         for period in labels:
             tick(period)
     elif smoothing_applies(settings) and len(store.period_labels()) > 1:
@@ -115,50 +129,86 @@ def _period_ticks(labels: list[str], progress: Callable[[str], None] | None) -> 
     return tick
 
 
-def fit_joint(snapshots: list, settings) -> list:
-    """One dynamic SBM over all periods (Matias & Miele 2017; Xu & Hero 2014).
+DYNAMIC = "dynamic"
+# options of the dynamic model, and the ones it refuses (with what to do instead)
+_DYNAMIC_OPTIONS = ("model", "degree_corrected", "restarts", "max_iter", "tol", "births")
 
-    Position k means the same in every period (block parameters are shared),
-    so position numbers are kept as fitted rather than re-ordered by size, and
-    each actor's membership carries its posterior probability.  Only actors
-    with ties in a period enter the model there; the period's tieless actors
-    take the isolates' position as with every method.
+
+def is_dynamic(settings_or_params) -> bool:
+    """Whether a fit (its settings, or its stored params) is the dynamic blockmodel.
+
+    Fits stored before the method had its own name were ``method="sbm"`` with
+    the ``joint`` option.
+    """
+    if isinstance(settings_or_params, dict):
+        method, options = settings_or_params.get("method"), settings_or_params.get("options") or {}
+    else:
+        method, options = settings_or_params.method, settings_or_params.options
+    return method == DYNAMIC or bool(options.get("joint"))
+
+
+def check_dynamic(settings) -> None:
+    """Refuse, with the fix, every setting the dynamic model would not honour."""
+    if not isinstance(settings.smoothing, str) and float(settings.smoothing) > 0:
+        raise UsageError("the dynamic model links periods through its Markov chain; drop --smooth "
+                         "(or choose a descriptive method to smooth)")
+    unknown = sorted(set(settings.options) - set(_DYNAMIC_OPTIONS) - {"joint"})
+    if unknown:
+        raise UsageError(f"the dynamic model has no option {unknown[0]!r}; its options are --model, "
+                         "--degree-corrected and --restarts")
+    if settings.options.get("degree_corrected") and settings.options.get("model", "poisson") != "poisson":
+        raise UsageError("degree correction is defined for counts only; use --model poisson with --degree-corrected")
+
+
+def fit_dynamic(snapshots: list, settings) -> list:
+    """One dynamic blockmodel over all periods (Matias & Miele 2017; Xu & Hero 2014).
+
+    Every actor present in a period enters the model there, with or without
+    ties (no ties is evidence); absent actors emit nothing and their chain
+    continues.  Position ``k`` means the same in every period (block
+    parameters are shared), so positions keep their fitted numbers and may be
+    empty in some periods: a position is born in the first period it holds an
+    actor and ends after the last.  ``positions="auto"`` chooses ``K`` by ICL
+    over ``k_min .. k_max`` (:func:`tracker.models.dynamic.select_dynamic`).
+    Each membership carries its marginal posterior probability; each actor's
+    probability of having changed position since its previous presence (from
+    the pairwise posterior) is kept in the period's diagnostics
+    (``change_probability``) for the moves' confidence.
     """
     import dataclasses
 
     from tracker.blockmodel.fitting import fit_partition
     from tracker.blockmodel.partition import Partition
-    from tracker.blockmodel.sbm_dynamic import DynamicSBM
+    from tracker.models.dynamic import DynamicSBM, select_dynamic
 
-    if settings.method != "sbm":
-        raise UsageError("a joint fit over all periods is a dynamic SBM: use --method sbm with --joint")
-    if settings.positions == "auto":
-        raise UsageError("--joint needs a fixed number of positions (--positions K)")
-    if not isinstance(settings.smoothing, str) and settings.smoothing > 0:
-        raise UsageError("--joint already links periods through its Markov chain; drop --smooth")
-    k = int(settings.positions)
-    opts = {key: value for key, value in settings.options.items()
-            if key in ("model", "degree_corrected", "restarts", "max_iter", "tol")}
-    data, tied_index = [], []
-    for snap in snapshots:
-        idx = np.flatnonzero(snap.tied())
-        tied_index.append(idx)
-        data.append(([snap.actors[i] for i in idx], [m[idx][:, idx] for m in snap.matrices], snap.directed))
-    model = DynamicSBM(k, seed=settings.seed, **opts).fit(data)
+    check_dynamic(settings)
+    opts = {key: value for key, value in settings.options.items() if key in _DYNAMIC_OPTIONS}
+    data = [(list(snap.actors), list(snap.matrices), snap.directed) for snap in snapshots]
+    try:
+        if settings.positions == "auto":
+            model, table = select_dynamic(data, (settings.k_min, settings.k_max), seed=settings.seed, **opts)
+        else:
+            k = min(int(settings.positions), len({a for snap in snapshots for a in snap.actors}))
+            model, table = DynamicSBM(k, seed=settings.seed, **opts).fit(data), None
+    except ValueError as exc:
+        raise UsageError(f"the dynamic model cannot be fitted: {exc}") from exc
+    k = model.n_positions
+    ran = {"method": DYNAMIC, "model": opts.get("model", "poisson"),
+           "degree_corrected": bool(opts.get("degree_corrected", False)), "n_positions": k,
+           "criterion": settings.criterion, "elbo": float(model.elbo_), "icl": float(model.icl_),
+           "transition": np.round(model.transition_, 4).tolist(), "initial": np.round(model.initial_, 4).tolist()}
+    if table is not None:
+        ran["auto"] = table
     results = []
     for t, snap in enumerate(snapshots):
-        idx = tied_index[t]
-        has_isolates = idx.size < snap.n
-        labels = np.full(snap.n, k, dtype=np.int64)
-        confidence = np.full(snap.n, np.nan)
-        if idx.size:
-            labels[idx] = model.labels_[t]
-            confidence[idx] = model.posteriors_[t].max(axis=1)
-        diagnostics = {"method": "sbm", "joint": True, "criterion": settings.criterion,
-                       "elbo": float(model.elbo_), "transition": np.round(model.transition_, 4).tolist()}
-        part = Partition(labels, k + (1 if has_isolates else 0), k if has_isolates else None, diagnostics)
-        results.append(dataclasses.replace(fit_partition(snap, part, settings), confidence=confidence))
+        change = model.change_probability_[t]
+        diagnostics = dict(ran, change_probability={a: float(round(p, 6)) for a, p in zip(snap.actors, change)
+                                                    if np.isfinite(p)})
+        part = Partition(model.labels_[t], k, None, diagnostics)
+        results.append(dataclasses.replace(fit_partition(snap, part, settings),
+                                           confidence=model.posteriors_[t].max(axis=1)))
     return results
+
 
 def frozen_prefix(store, settings, labels: list[str]) -> tuple[list[str], list]:
     """Stored periods of the same fit that come before ``labels``, as partitions to keep.

@@ -12,7 +12,7 @@ import functools
 import numpy as np
 import pandas as pd
 
-__all__ = ["align_fit", "aligned_inputs", "stored_alignment", "move_confidence_of", "identity_alignment",
+__all__ = ["align_fit", "dynamic_move_confidence", "aligned_inputs", "stored_alignment", "move_confidence_of", "identity_alignment",
            "carry_track_ids", "track_names"]
 
 
@@ -31,7 +31,9 @@ def align_fit(store, info: dict, params: dict, *, rebuild: bool = False):
     periods = aligned_inputs(store, fit_id)
     if not periods:
         raise UsageError(f"fit {fit_id} has no fitted periods; run roletrail fit first")
-    joint = bool(info["params"].get("options", {}).get("joint"))
+    from tracker.pipeline.fitting import is_dynamic
+
+    joint = is_dynamic(info["params"])
     previous = None if rebuild or joint else stored_alignment(store, fit_id, [p.period for p in periods])
     done = 0 if previous is None else len(previous.periods)
     if joint:
@@ -48,14 +50,34 @@ def align_fit(store, info: dict, params: dict, *, rebuild: bool = False):
     moves = moves[["actor", "from_period", "to_period", "from_track", "to_track"]].copy()
     moves["confidence"] = np.nan
     if joint and len(moves):
-        # Posterior of leaving track a and being in track b: the product of the two
-        # marginal posteriors (the chain's pairwise posterior is not stored).
-        conf = store.memberships(fit_id).set_index(["period", "actor"])["confidence"]
-        moves["confidence"] = [conf.get((f, a), np.nan) * conf.get((t, a), np.nan)
-                               for a, f, t in zip(moves["actor"], moves["from_period"], moves["to_period"])]
+        moves["confidence"] = dynamic_move_confidence(store.fit_periods(fit_id), moves)
     elif params["draws"] and len(moves):
         moves["confidence"] = move_confidence_of(store, info, periods, alignment, moves, params["draws"], params["seed"])
     return alignment, moves, order, done
+
+
+def dynamic_move_confidence(fit_periods: pd.DataFrame, moves: pd.DataFrame) -> np.ndarray:
+    """Confidence of each move of a dynamic fit: the posterior probability that the actor changed position.
+
+    From the pairwise posterior of the actor's two consecutive presences,
+    :math:`1 - \\sum_k q(z_s = k, z_t = k)` (kept by
+    :func:`tracker.pipeline.fitting.fit_dynamic` as ``change_probability`` in
+    the diagnostics of period ``t``), not the product of the two marginals,
+    which ignores that the two positions are dependent.  Reported moves are
+    the changes of the most probable position (marginal MAP) between
+    consecutive presences; each carries the probability that a change really
+    happened there, so among moves reported at confidence ``c`` a share ``c``
+    is expected to be real.  Legacy joint fits without stored pairwise
+    posteriors get NaN.
+    """
+    import json
+
+    change = {}
+    for period, diag in zip(fit_periods["period"], fit_periods["diagnostics"]):
+        values = diag if isinstance(diag, dict) else json.loads(diag or "{}")
+        change[period] = values.get("change_probability") or {}
+    return np.array([change.get(t, {}).get(a, np.nan) for a, t in zip(moves["actor"], moves["to_period"])],
+                    dtype=float)
 
 
 def aligned_inputs(store, fit_id: int) -> list:
@@ -187,7 +209,11 @@ def track_names(tracks: pd.DataFrame) -> dict[int, str]:
 
 
 def identity_alignment(periods):
-    """Tracks of a joint fit: position k is track k + 1 in every period; isolates track 0."""
+    """Tracks of a dynamic fit: position k is track k + 1 in every period; isolates track 0.
+
+    A position empty in a period has no track there, so a track is born in the
+    first period its position holds an actor and ends after the last.
+    """
     from tracker.longitudinal.align import Alignment, Link, TrackInfo
 
     assignment, seen = {}, {}

@@ -17,6 +17,16 @@ identifiability up to one relabelling of the positions for all periods; the
 price is that a position whose pattern of ties really changes over the years
 is described as actors moving between fixed positions.
 
+What the model gives, per period: the most probable position of each present
+actor, the marginal posteriors :math:`q(z_t = k)`, and the pairwise posteriors
+:math:`q(z_s = k, z_t = l)` between an actor's consecutive presences (``s = t - 1``
+or, across absences, its previous present period), from which the probability
+that the actor changed position is :math:`1 - \\sum_k q(z_s = k, z_t = k)`.
+Positions may be empty in some periods (born later, or ended); actors absent
+from a period emit nothing there while their chain runs on; a present actor
+without ties is evidence (of a quiet position).  The number of positions is
+chosen by ICL (:func:`select_dynamic`).
+
 References
 ----------
 .. [1] Matias, C. & Miele, V. (2017). Statistical clustering of temporal
@@ -34,6 +44,7 @@ References
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 from typing import Sequence
 
@@ -41,21 +52,13 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.special import gammaln, xlogy
 
-from tracker.blockmodel.sbm import (
-    _check_matrices,
-    _check_options,
-    _check_positions,
-    _greedy,
-    _make_rel,
-    _random_labels,
-    _spectral_labels,
-)
-from tracker.errors import UsageError
+from tracker.execution import map_tasks, task_seeds
+from tracker.models import likelihood as lik
 
-__all__ = ["DynamicSBM"]
+__all__ = ["DynamicSBM", "select_dynamic"]
 
-_RATE_FLOOR = 1e-300  # keeps log(rate) finite for blocks without ties
-_PROB_FLOOR = 1e-10  # keeps the forward recursion away from exact zeros
+_PROB_FLOOR = 1e-10
+_BIRTH_EVICT = 3.0  # most actor-periods a birth may move out of a position  # keeps the forward recursion away from exact zeros
 
 
 class DynamicSBM:
@@ -74,6 +77,9 @@ class DynamicSBM:
         Cap on EM iterations per start.
     tol : float, default 1e-6
         Stop when the bound rises by less than ``tol * |bound|``.
+    births : bool, default True
+        Let positions be born mid-series (closed in the entry and transition
+        laws before their birth period; see :func:`_choose_births`).
     restarts : int, default 3
         Starts: the first from a blockmodel of all periods pooled (spectral
         start, see :class:`~tracker.blockmodel.sbm.SBMPositions`), the others
@@ -97,6 +103,18 @@ class DynamicSBM:
     rates_ : numpy.ndarray, shape (R, B, B)
         Block parameters per relation, shared by all periods (as in
         :class:`~tracker.blockmodel.sbm.SBMPositions`).
+    pairwise_ : dict int -> numpy.ndarray, shape (n_t, B, B)
+        For period ``t``, each present actor's joint posterior
+        :math:`q(z_s = k, z_t = l)` with ``s`` its previous presence
+        (``previous_[t]``; across absences, the two present periods); NaN
+        where the actor has no earlier presence.
+    previous_ : dict int -> numpy.ndarray of int, shape (n_t,)
+        Index of each present actor's previous presence, ``-1`` for none.
+    change_probability_ : dict int -> numpy.ndarray, shape (n_t,)
+        :math:`1 - \\sum_k q(z_s = k, z_t = k)`: the posterior probability
+        that the actor changed position since its previous presence.
+    icl_ : float
+        Integrated classification likelihood (see :func:`select_dynamic`).
     elbo_ : float
         Evidence lower bound at the optimum (a lower bound of the marginal
         log-likelihood).  ``log_likelihood_`` is the same number.
@@ -118,6 +136,12 @@ class DynamicSBM:
     activity parameters are plug-ins, the actor's degree in the period (the
     maximum-likelihood value when memberships are known, Karrer & Newman
     2011), and only :math:`\\omega` is estimated.
+
+    *Births and ends.*  Positions are not forced to hold actors in every
+    period (unlike a per-period fit with a fixed ``K``): a position may be
+    empty before it is born and after it ends, and the shared block
+    parameters say what it is whenever it is occupied.  An actor absent before
+    it exists has no chain there, so its arrival is not a move.
 
     *Fit.*  Variational EM with a structured mean field (Matias & Miele 2017):
     :math:`q(Z) = \\prod_i q_i(z_{i,f_i..l_i})`, each :math:`q_i` a Markov
@@ -163,6 +187,7 @@ class DynamicSBM:
         max_iter: int = 100,
         tol: float = 1e-6,
         restarts: int = 3,
+        births: bool = True,
     ) -> None:
         self.n_positions = n_positions
         self.seed = seed
@@ -171,6 +196,7 @@ class DynamicSBM:
         self.max_iter = max_iter
         self.tol = tol
         self.restarts = restarts
+        self.births = births
 
     def fit(self, periods: Sequence[tuple]) -> "DynamicSBM":
         """Fit to a list of periods in time order.
@@ -181,30 +207,40 @@ class DynamicSBM:
             ``actors`` the actor names present in the period (matrix order),
             ``matrices`` one ``n_t x n_t`` sparse matrix per relation,
             ``directed`` one flag per relation.  Every period has the same
-            relations, in the same order.
+            relations, in the same order.  An actor present without ties is
+            listed (no ties is evidence); an absent actor is not listed.
 
         Returns
         -------
         self
         """
-        _check_options(self.model, self.degree_corrected)
+        lik.check_options(self.model, self.degree_corrected)
         if int(self.restarts) < 1 or int(self.max_iter) < 1:
-            raise UsageError("restarts and max_iter must be at least 1")
+            raise ValueError("restarts and max_iter must be at least 1")
         data = _prepare_periods(periods, self.model == "bernoulli", bool(self.degree_corrected))
-        B = _check_positions(self.n_positions, data.n)
-        rng = np.random.default_rng(self.seed)
-        pooled = _pooled_rels(data)
-        best = None
-        for start in range(int(self.restarts)):
-            child = np.random.default_rng(rng.integers(2**63))
-            init = _spectral_labels(pooled, data.n, B, child) if start == 0 else _random_labels(data.n, B, child)
-            labels, _, _ = _greedy(pooled, init, B, child, 50)
-            result = _vem(data, labels, B, child, int(self.max_iter), float(self.tol))
-            if best is None or result[2][-1] > best[2][-1]:
-                best = result
+        B = lik.check_positions(self.n_positions, data.n)
+        tasks = [(data, B, start, seed, int(self.max_iter), float(self.tol))
+                 for start, seed in enumerate(task_seeds(int(self.seed), int(self.restarts)))]
+        results = map_tasks(_one_start, tasks, label="dynamic model starts")
+        best = max(results, key=lambda r: r[2][-1])  # first of equal bounds: same answer whatever the workers
         state, params, history, n_iter = best
+        births = np.zeros(B, dtype=np.int64)
+        if self.births and data.T > 1:
+            rng = np.random.default_rng(task_seeds(int(self.seed), int(self.restarts) + 1)[-1])
+            state, params, history, births = _choose_births(data, state, params, B, rng, int(self.max_iter),
+                                                            float(self.tol), history)
+        self._set_results(data, state, params, history, n_iter, B)
+        self.births_ = births
+        self.icl_ -= float((births > 0).sum()) * np.log(max(data.T - 1, 1))
+        return self
+
+    def _set_results(self, data, state, params, history, n_iter, B) -> None:
         self.actors_ = data.actors
-        self.posteriors_ = {t: state.gamma[t, idx].copy() for t, idx in enumerate(data.index)}
+        # one last forward-backward pass at the final parameters, so that marginals and
+        # pairwise posteriors come from the same chain posterior
+        E = _emissions(data, state, params)
+        gamma = _forward_backward(E, data.first, data.last, params.pi, params.P, params.active)[0]
+        self.posteriors_ = {t: gamma[t, idx].copy() for t, idx in enumerate(data.index)}
         self.labels_ = {t: post.argmax(axis=1) for t, post in self.posteriors_.items()}
         self.initial_ = params.pi.copy()
         self.transition_ = params.P.copy()
@@ -213,7 +249,77 @@ class DynamicSBM:
         self.log_likelihood_ = self.elbo_
         self.history_ = [float(v) for v in history]
         self.n_iter_ = int(n_iter)
-        return self
+        self.previous_, self.pairwise_ = _pairwise(E, data, params.pi, params.P, params.active)
+        self.change_probability_ = {
+            t: np.where(self.previous_[t] >= 0, 1.0 - np.trace(pw, axis1=1, axis2=2), np.nan)
+            for t, pw in self.pairwise_.items()
+        }
+        self.icl_ = float(_icl(data, state, params, self.elbo_, B))
+
+
+def select_dynamic(periods: Sequence[tuple], k_range: tuple[int, int] = (2, 8), *, seed: int = 0,
+                   **options) -> tuple[DynamicSBM, list[dict]]:
+    """Fit :class:`DynamicSBM` for each ``B`` in ``k_range`` and keep the largest ICL.
+
+    The integrated classification likelihood of the dynamic blockmodel
+    (Matias & Miele 2017, section 3.4; the static form is Daudin, Picard &
+    Robin 2008 and Biernacki, Celeux & Govaert 2000) is
+
+    .. math::
+
+        \\mathrm{ICL}(B) = \\mathbb{E}_q[\\log p(A, Z)]
+            - \\frac{B-1}{2}\\log n
+            - \\frac{B(B-1)}{2}\\log S
+            - \\frac{p_B}{2}\\log\\Big(\\sum_t \\text{pairs}_t\\Big),
+
+    with ``n`` actors, ``S`` observed steps of the actors' chains (one per
+    actor and period after its first), :math:`p_B` the free block
+    parameters (``B^2`` per directed relation, ``B(B+1)/2`` per undirected
+    one) and :math:`\\text{pairs}_t` the ordered or unordered pairs of period
+    ``t``.  The expected complete-data log-likelihood is the bound less the
+    entropy of ``q``.  ICL rather than BIC because it also penalises
+    positions that are not well separated (the entropy of the
+    classification; Biernacki et al. 2000), which is what a user wants when a
+    position is to be read as a role.
+
+    Returns
+    -------
+    (model, table)
+        The chosen fit and one row per ``B``: ``n_positions``, ``elbo``,
+        ``icl``.
+
+    References
+    ----------
+    Biernacki, C., Celeux, G. & Govaert, G. (2000). Assessing a mixture model
+    for clustering with the integrated completed likelihood. IEEE TPAMI 22,
+    719-725.
+    """
+    try:
+        lo, hi = (int(k) for k in k_range)
+    except (TypeError, ValueError):
+        raise ValueError(f"k_range must be two whole numbers (smallest, largest); got {k_range!r}") from None
+    if lo < 1 or hi < lo:
+        raise ValueError(f"k_range must satisfy 1 <= smallest <= largest; got {k_range!r}")
+    n = len({str(a) for item in periods for a in item[0]})
+    hi = min(hi, n)
+    lo = min(lo, hi)
+    fits, table = [], []
+    for k in range(lo, hi + 1):
+        fit = DynamicSBM(k, seed=seed, **options).fit(periods)
+        fits.append(fit)
+        table.append({"n_positions": k, "elbo": fit.elbo_, "icl": fit.icl_, "chosen": False})
+    best = int(np.argmax([row["icl"] for row in table]))
+    table[best]["chosen"] = True
+    return fits[best], table
+
+
+def _one_start(data, B: int, start: int, seed: int, max_iter: int, tol: float):
+    """One EM run: the first start from the pooled spectral partition, the others random."""
+    rng = np.random.default_rng(seed)
+    pooled = _pooled_rels(data)
+    init = lik.spectral_labels(pooled, data.n, B, rng) if start == 0 else lik.random_labels(data.n, B, rng)
+    labels, _, _ = lik.greedy_ascent(pooled, init, B, rng, 50)
+    return _vem(data, labels, B, rng, max_iter, tol)
 
 
 # ----------------------------------------------------------------------------
@@ -252,7 +358,7 @@ class _Data:
 def _prepare_periods(periods, bernoulli: bool, dc: bool) -> _Data:
     periods = list(periods)
     if not periods:
-        raise UsageError("no period given; pass at least one (actors, matrices, directed) triple")
+        raise ValueError("no period given; pass at least one (actors, matrices, directed) triple")
     position: dict = {}
     index, layers = [], []
     flags0 = None
@@ -260,17 +366,17 @@ def _prepare_periods(periods, bernoulli: bool, dc: bool) -> _Data:
         try:
             actors, matrices, directed = item
         except (TypeError, ValueError):
-            raise UsageError(
+            raise ValueError(
                 f"period {t} is not an (actors, matrices, directed) triple; pass one triple per period"
             ) from None
         actors = [str(a) for a in actors]
         if len(set(actors)) != len(actors):
-            raise UsageError(f"period {t} lists an actor twice; give each present actor once")
-        coos, flags, n_t = _check_matrices(matrices, directed, n=len(actors))
+            raise ValueError(f"period {t} lists an actor twice; give each present actor once")
+        coos, flags, n_t = lik.check_matrices(matrices, directed, n=len(actors))
         if flags0 is None:
             flags0 = flags
         elif flags != flags0:
-            raise UsageError(
+            raise ValueError(
                 f"period {t} has other relations than period 0; "
                 "give every period the same relations in the same order"
             )
@@ -315,7 +421,7 @@ def _pooled_rels(data: _Data) -> list:
             (np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(data.n, data.n)
         )
         pooled.sum_duplicates()
-        rels.append(_make_rel(pooled, data.directed[r], data.n, data.bernoulli, data.dc))
+        rels.append(lik.make_relation(pooled, data.directed[r], data.n, data.bernoulli, data.dc))
     return rels
 
 
@@ -329,6 +435,28 @@ class _Params:
     pi: np.ndarray
     P: np.ndarray
     theta: np.ndarray  # (R, B, B)
+    active: np.ndarray | None = None  # (T, B): position k open in period t (None: all open)
+
+
+def _chain_laws(pi, P, active, T: int):
+    """Entry laws per period (T, B) and transition matrices into each period (T, B, B).
+
+    A position closed in period ``t`` (not yet born) can be neither entered
+    nor started in: :math:`\\pi_t(k) \\propto \\pi(k) a_{tk}`,
+    :math:`P_t(j, l) \\propto P(j, l) a_{tl}` (rows renormalised).
+    """
+    B = pi.size
+    if active is None:
+        return np.broadcast_to(pi, (T, B)), np.broadcast_to(P, (T, B, B))
+    pis = pi[None, :] * active
+    pis = pis / pis.sum(axis=1, keepdims=True)
+    Ps = P[None, :, :] * active[:, None, :]
+    Ps = Ps / Ps.sum(axis=2, keepdims=True)
+    return pis, Ps
+
+
+def _log(x):
+    return np.log(np.maximum(x, 1e-300))
 
 
 @dataclass
@@ -346,15 +474,20 @@ def _vem(data: _Data, labels: np.ndarray, B: int, rng, max_iter: int, tol: float
     sizes = np.bincount(labels, minlength=B) + 1.0
     stay = 0.9  # a sticky but not rigid start for the chain
     params = _Params(sizes / sizes.sum(), stay * np.eye(B) + (1 - stay) / B, _theta(data, state))
-    # the first E-step moves from hard starting labels to a proper chain posterior
+    return _em_loop(data, state, params, B, rng, max_iter, tol)
+
+
+def _em_loop(data: _Data, state: _State, params: _Params, B: int, rng, max_iter: int, tol: float):
+    """EM from a state and parameters (``params.active`` is kept fixed)."""
+    # the first E-step moves from the given memberships to a proper chain posterior
     state = _propose(data, state, params, np.arange(data.n))
-    params = _m_step(data, state, B)
+    params = _m_step(data, state, B, params.active)
     history = [_elbo(data, state, params)]
     n_iter = 0
     while n_iter < max_iter:
         n_iter += 1
         state, value = _e_step(data, state, params, history[-1], rng)
-        updated = _m_step(data, state, B)
+        updated = _m_step(data, state, B, params.active)
         after = _elbo(data, state, updated)
         if after >= value:  # exact M-step; only the probability floors could make it fall
             params, value = updated, after
@@ -362,6 +495,47 @@ def _vem(data: _Data, labels: np.ndarray, B: int, rng, max_iter: int, tol: float
         if value - history[-2] <= tol * abs(history[-2]):
             break
     return state, params, history, n_iter
+
+
+def _choose_births(data: _Data, state: _State, params: _Params, B: int, rng, max_iter: int, tol: float,
+                   history: list):
+    """Give each position a birth period where the data prefer one (see the class Notes).
+
+    For each position ``k`` (in order) and each candidate birth ``b`` such
+    that at most ``_BIRTH_EVICT`` actor-periods of posterior mass sit in
+    ``k`` before ``b``, EM is rerun from the current fit with ``k`` closed
+    before ``b``; the best bound wins if it beats the open position by more
+    than ``log(T - 1)``: the posterior odds under a prior that gives
+    probability 1/2 to "open from the start" and spreads the other half
+    evenly over the ``T - 1`` later birth periods (a Bayes factor approximated
+    by the bound; Kass & Raftery 1995).  Returns ``(state, params, history,
+    births)``.
+    """
+    T = data.T
+    active = np.ones((T, B), dtype=bool) if params.active is None else params.active.copy()
+    cost = np.log(max(T - 1, 1))
+    births = np.zeros(B, dtype=np.int64)
+    current = history[-1]
+    for k in range(B):
+        occupancy = np.array([state.gamma[t, idx, k].sum() for t, idx in enumerate(data.index)])
+        before = np.concatenate([[0.0], np.cumsum(occupancy)])[:-1]
+        best = None
+        for b in range(1, T):
+            if before[b] > _BIRTH_EVICT or occupancy[b:].sum() < 0.5:
+                continue
+            trial = active.copy()
+            trial[:b, k] = False
+            if (trial.sum(axis=1) == 0).any():
+                continue
+            result = _em_loop(data, state, dataclasses.replace(params, active=trial), B, rng, max_iter, tol)
+            if best is None or result[2][-1] > best[0][2][-1]:
+                best = (result, b, trial)
+        if best is not None and best[0][2][-1] - current > cost:
+            (state, params, more, _), b, active = best
+            history = history + [more[-1]]  # the accepted birth raises the bound by more than its cost
+            current = history[-1]
+            births[k] = b
+    return state, params, history, births
 
 
 def _e_step(data, state, params, current, rng):
@@ -392,7 +566,7 @@ def _e_step(data, state, params, current, rng):
 def _propose(data: _Data, state: _State, params: _Params, who: np.ndarray) -> _State:
     """New chains for actors ``who``, each the HMM posterior given everyone else."""
     E = _emissions(data, state, params)
-    gamma, xi, g0, entropy = _forward_backward(E, data.first, data.last, params.pi, params.P)
+    gamma, xi, g0, entropy = _forward_backward(E, data.first, data.last, params.pi, params.P, params.active)
     new_gamma = state.gamma.copy()
     new_gamma[:, who] = gamma[:, who]
     new_xi, new_g0, new_h = state.xi.copy(), state.g0.copy(), state.entropy.copy()
@@ -401,34 +575,15 @@ def _propose(data: _Data, state: _State, params: _Params, who: np.ndarray) -> _S
 
 
 def _layer_stats(layer: _Layer, tau: np.ndarray):
-    """Expected block totals ``m`` and exposures ``N`` of one relation in one period.
-
-    ``m = tau^T A tau``; ``N_kl = sum_{i != j} w_i w'_j tau_ik tau_jl`` (plus,
-    with degree correction, the diagonal pair of Karrer & Newman's model).
-    """
-    Atau = layer.A @ tau
-    ATtau = layer.AT @ tau if layer.AT is not None else Atau
-    m = tau.T @ Atau
-    S_out = layer.w_out @ tau
-    S_in = layer.w_in @ tau
-    self_w = layer.w_out * layer.w_in
-    N = np.outer(S_out, S_in) - tau.T @ (self_w[:, None] * tau)
-    if layer.dc:
-        N += np.diag(self_w @ tau)
-    return Atau, ATtau, m, N
+    """Expected block totals ``m`` and exposures ``N`` (see :func:`tracker.models.likelihood.expected_block_stats`)."""
+    return lik.expected_block_stats(layer.A, layer.AT, layer.w_out, layer.w_in, layer.dc, tau)
 
 
 def _all_stats(data: _Data, gamma: np.ndarray) -> list:
     return [[_layer_stats(layer, gamma[t, idx]) for layer in data.layers[t]] for t, idx in enumerate(data.index)]
 
 
-def _link(theta: np.ndarray, bernoulli: bool):
-    """(f1, f2) with the expected log-likelihood ``sum m*f1 + N*f2`` (times coef)."""
-    if bernoulli:
-        p = np.clip(theta, _RATE_FLOOR, 1.0 - 1e-12)
-        return np.log(p) - np.log1p(-p), np.log1p(-p)
-    rate = np.maximum(theta, _RATE_FLOOR)
-    return np.log(rate), -theta
+_link = lik.link_terms
 
 
 def _emissions(data: _Data, state: _State, params: _Params) -> np.ndarray:
@@ -457,8 +612,42 @@ def _emissions(data: _Data, state: _State, params: _Params) -> np.ndarray:
     return E
 
 
-def _forward_backward(E, first, last, pi, P):
-    """Scaled forward-backward for every actor's chain at once.
+def _passes(E, first, last, pi, P, active=None):
+    """Scaled forward and backward passes of every actor's chain at once.
+
+    Absent periods inside an actor's span have zero emission log-terms, so
+    the chain passes through them; periods outside the span are inert.
+    Returns ``alpha`` (filtered marginals), ``beta`` (scaled backward
+    messages), ``em`` (emissions over their per-(t, i) maximum ``shift``) and
+    the forward normalisers ``scale``.
+    """
+    with np.errstate(invalid="ignore", divide="ignore"):  # periods outside a chain are inert, masked later
+        return _passes_inner(E, first, last, pi, P, active)
+
+
+def _passes_inner(E, first, last, pi, P, active):
+    T, n, B = E.shape
+    pis, Ps = _chain_laws(pi, P, active, T)
+    shift = E.max(axis=2)
+    em = np.exp(E - shift[:, :, None])
+    alpha = np.empty((T, n, B))
+    scale = np.ones((T, n))
+    for t in range(T):
+        prior = np.broadcast_to(pis[t], (n, B)) if t == 0 else alpha[t - 1] @ Ps[t]
+        prior = np.where((first == t)[:, None], pis[t][None, :], prior)
+        a = prior * em[t]
+        scale[t] = a.sum(axis=1)
+        alpha[t] = a / scale[t][:, None]
+    beta = np.ones((T, n, B))
+    for t in range(T - 2, -1, -1):
+        back = (em[t + 1] * beta[t + 1] / scale[t + 1][:, None]) @ Ps[t + 1].T
+        run = (t >= first) & (t < last)
+        beta[t] = np.where(run[:, None], back, 1.0)
+    return alpha, beta, em, scale, shift
+
+
+def _forward_backward(E, first, last, pi, P, active=None):
+    """Forward-backward for every actor's chain at once (see :func:`_passes`).
 
     Returns marginals ``gamma`` (T, n, B), summed pairwise marginals
     ``xi`` (n, B, B), first-period marginals ``g0`` (n, B) and the entropy of
@@ -468,36 +657,81 @@ def _forward_backward(E, first, last, pi, P):
     """
     T, n, B = E.shape
     ts = np.arange(T)[:, None]
-    active = (ts >= first[None, :]) & (ts <= last[None, :])  # (T, n)
-    shift = E.max(axis=2)
-    em = np.exp(E - shift[:, :, None])
-    alpha = np.empty((T, n, B))
-    scale = np.ones((T, n))
-    for t in range(T):
-        prior = np.broadcast_to(pi, (n, B)) if t == 0 else alpha[t - 1] @ P
-        prior = np.where((first == t)[:, None], pi[None, :], prior)
-        a = prior * em[t]
-        scale[t] = a.sum(axis=1)
-        alpha[t] = a / scale[t][:, None]
-    beta = np.ones((T, n, B))
-    for t in range(T - 2, -1, -1):
-        back = (em[t + 1] * beta[t + 1] / scale[t + 1][:, None]) @ P.T
-        run = (t >= first) & (t < last)
-        beta[t] = np.where(run[:, None], back, 1.0)
+    running = (ts >= first[None, :]) & (ts <= last[None, :])  # (T, n)
+    alpha, beta, em, scale, shift = _passes(E, first, last, pi, P, active)
+    pis, Ps = _chain_laws(pi, P, active, T)
     gamma = alpha * beta
     gamma /= gamma.sum(axis=2, keepdims=True)
     xi = np.zeros((n, B, B))
+    g0 = gamma[first, np.arange(n)]
+    expected_prior = (g0 * _log(pis[first])).sum(axis=1)
     for t in range(1, T):
         sel = np.flatnonzero((t > first) & (t <= last))
         if sel.size:
             right = em[t, sel] * beta[t, sel] / scale[t, sel][:, None]
-            xi[sel] += alpha[t - 1, sel][:, :, None] * P[None, :, :] * right[:, None, :]
-    g0 = gamma[first, np.arange(n)]
-    log_z = np.where(active, np.log(scale) + shift, 0.0).sum(axis=0)
-    expected_prior = g0 @ np.log(pi) + np.einsum("ikl,kl->i", xi, np.log(P))
-    expected_emission = np.where(active[:, :, None], gamma * E, 0.0).sum(axis=(0, 2))
+            step = alpha[t - 1, sel][:, :, None] * Ps[t][None, :, :] * right[:, None, :]
+            xi[sel] += step
+            expected_prior[sel] += np.einsum("ikl,kl->i", step, _log(Ps[t]))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        log_z = np.where(running, np.log(scale) + shift, 0.0).sum(axis=0)
+    expected_emission = np.where(running[:, :, None], gamma * E, 0.0).sum(axis=(0, 2))
     entropy = log_z - expected_prior - expected_emission
     return gamma, xi, g0, entropy
+
+
+def _pairwise(E, data: _Data, pi, P, active=None):
+    """Pairwise posteriors between each actor's consecutive presences.
+
+    For actor ``i`` present in period ``t`` whose previous presence is ``s``
+    (``s = t - 1``, or earlier across absences),
+
+    .. math::
+
+        q(z_{is} = k, z_{it} = l) \\propto \\alpha_{is}(k)\\,(P^{t-s})_{kl}\\,
+            e^{e_{itl}}\\,\\beta_{it}(l)
+
+    (the two-slice marginal of the forward-backward algorithm; Rabiner 1989,
+    eq. 37, with the absent periods summed out through the matrix power).
+    Returns ``(previous, pairwise)``: per period, each present actor's
+    previous period index (``-1`` for none) and an ``(n_t, B, B)`` array (NaN
+    where there is no previous presence).
+    """
+    alpha, beta, em, _, _ = _passes(E, data.first, data.last, pi, P, active)
+    T, n, B = E.shape
+    _, Ps = _chain_laws(pi, P, active, T)
+    present = np.zeros((T, n), dtype=bool)
+    for t, idx in enumerate(data.index):
+        present[t, idx] = True
+    last_seen = np.full(n, -1)
+    previous, pairwise = {}, {}
+    powers = {}
+    for t, idx in enumerate(data.index):
+        prev = last_seen[idx].copy()
+        pw = np.full((idx.size, B, B), np.nan)
+        for s in np.unique(prev[prev >= 0]):
+            if (s, t) not in powers:  # the chain's law from s to t: P_{s+1} ... P_t
+                powers[(s, t)] = np.linalg.multi_dot([np.eye(B), *Ps[s + 1: t + 1]])
+            rows = np.flatnonzero(prev == s)
+            who = idx[rows]
+            left = alpha[s, who]
+            right = em[t, who] * beta[t, who]
+            joint = left[:, :, None] * powers[(s, t)][None, :, :] * right[:, None, :]
+            pw[rows] = joint / joint.sum(axis=(1, 2), keepdims=True)
+        previous[t], pairwise[t] = prev, pw
+        last_seen[idx] = t
+    return previous, pairwise
+
+
+def _icl(data: _Data, state: _State, params: _Params, elbo: float, B: int) -> float:
+    """Integrated classification likelihood (see :func:`select_dynamic`)."""
+    complete = elbo - float(state.entropy.sum())
+    steps = float(np.sum(data.last - data.first))
+    penalty = (B - 1) * np.log(max(data.n, 1)) + B * (B - 1) * np.log(max(steps, 1.0))
+    for r in range(data.R):
+        pairs = sum(idx.size * (idx.size - 1) / (1.0 if data.directed[r] else 2.0) for idx in data.index)
+        k = B * B if data.directed[r] else B * (B + 1) / 2
+        penalty += k * np.log(max(pairs, 1.0))
+    return complete - 0.5 * penalty
 
 
 def _theta(data: _Data, state: _State) -> np.ndarray:
@@ -513,7 +747,7 @@ def _theta(data: _Data, state: _State) -> np.ndarray:
     return np.clip(theta, 0.0, 1.0) if data.bernoulli else theta
 
 
-def _m_step(data: _Data, state: _State, B: int) -> _Params:
+def _m_step(data: _Data, state: _State, B: int, active=None) -> _Params:
     pi = state.g0.sum(axis=0)
     pi = np.maximum(pi / pi.sum(), _PROB_FLOOR)
     pi /= pi.sum()
@@ -522,7 +756,7 @@ def _m_step(data: _Data, state: _State, B: int) -> _Params:
     P = np.where(rows > 0, counts / np.where(rows > 0, rows, 1.0), 1.0 / B)
     P = np.maximum(P, _PROB_FLOOR)
     P /= P.sum(axis=1, keepdims=True)
-    return _Params(pi, P, _theta(data, state))
+    return _Params(pi, P, _theta(data, state), active)
 
 
 def _elbo(data: _Data, state: _State, params: _Params) -> float:
@@ -531,6 +765,14 @@ def _elbo(data: _Data, state: _State, params: _Params) -> float:
         + np.einsum("ikl,kl->", state.xi, np.log(params.P))
         + state.entropy.sum()
     )
+    if params.active is not None:
+        # log P_t(k, l) = log P(k, l) - log Z_t(k) where the chain may go (see _chain_laws)
+        a = params.active
+        chain -= np.log((params.pi[None, :] * a).sum(axis=1))[data.first].sum()
+        for t in range(1, data.T):
+            sel = (t > data.first) & (t <= data.last)
+            if sel.any():
+                chain -= state.gamma[t - 1, sel].sum(axis=0) @ np.log(params.P @ a[t])
     fit = 0.0
     for t in range(data.T):
         for r, layer in enumerate(data.layers[t]):

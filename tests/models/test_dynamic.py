@@ -10,10 +10,9 @@ import scipy.sparse as sp
 from scipy.special import gammaln, logsumexp, xlogy
 from sklearn.metrics import adjusted_rand_score
 
-from tracker.blockmodel import sbm_dynamic as dyn
+from tracker.models import dynamic as dyn
 from tracker.blockmodel.sbm import SBMPositions, log_likelihood
-from tracker.blockmodel.sbm_dynamic import DynamicSBM
-from tracker.errors import UsageError
+from tracker.models.dynamic import DynamicSBM
 from tests.helpers.planted import planted_sbm
 
 VARIANTS = [("poisson", False), ("bernoulli", False), ("poisson", True)]
@@ -240,13 +239,120 @@ def test_same_seed_same_answer():
 
 def test_usage_errors():
     A = sp.csr_array(np.array([[0.0, 1.0], [1.0, 0.0]]))
-    with pytest.raises(UsageError):
+    with pytest.raises(ValueError):
         DynamicSBM(2).fit([])
-    with pytest.raises(UsageError):
+    with pytest.raises(ValueError):
         DynamicSBM(2).fit([(["a", "b"], [A], [False]), (["a", "b"], [A], [True])])  # relations differ
-    with pytest.raises(UsageError):
+    with pytest.raises(ValueError):
         DynamicSBM(2).fit([(["a", "a"], [A], [False])])  # an actor twice
-    with pytest.raises(UsageError):
+    with pytest.raises(ValueError):
         DynamicSBM(3).fit([(["a", "b"], [A], [False])])  # more positions than actors
-    with pytest.raises(UsageError):
+    with pytest.raises(ValueError):
         DynamicSBM(2).fit([(["a", "b", "c"], [A], [False])])  # matrix does not fit the actors
+
+
+# ---------------------------------------------------------------- pairwise posteriors
+
+
+def test_pairwise_posterior_matches_enumeration_across_an_absence():
+    # source: brute force of the definition: q(z_s = k, z_t = l) is the sum over every
+    # position path of prior(path) * exp(emissions) with z_s = k, z_t = l, normalised
+    # (Rabiner 1989, eq. 37); the actor is absent in period 2, where it emits nothing
+    from types import SimpleNamespace
+
+    rng = np.random.default_rng(2)
+    T, B = 4, 3
+    E = rng.normal(size=(T, 1, B))
+    E[2] = 0.0  # absent: no emission
+    pi = rng.dirichlet(np.ones(B))
+    P = rng.dirichlet(np.ones(B), size=B)
+    data = SimpleNamespace(first=np.array([0]), last=np.array([T - 1]),
+                           index=[np.array([0]), np.array([0]), np.array([], dtype=int), np.array([0])])
+    previous, pairwise = dyn._pairwise(E, data, pi, P)
+    brute = {1: np.zeros((B, B)), 3: np.zeros((B, B))}
+    for path in itertools.product(range(B), repeat=T):
+        w = pi[path[0]] * np.prod([P[path[t - 1], path[t]] for t in range(1, T)])
+        w *= np.exp(sum(E[t, 0, path[t]] for t in range(T)))
+        brute[1][path[0], path[1]] += w
+        brute[3][path[1], path[3]] += w  # across the absence: previous presence is period 1
+    assert previous[1].tolist() == [0] and previous[3].tolist() == [1] and previous[0].tolist() == [-1]
+    for t in (1, 3):
+        assert np.allclose(pairwise[t][0], brute[t] / brute[t].sum(), atol=1e-12)
+    assert np.isnan(pairwise[0]).all()
+
+
+def test_change_probability_is_consistent_with_marginals_and_finds_a_planted_move():
+    # source: definition: the pairwise posterior's margins are the marginal posteriors;
+    # a planted single move (two clear blocks, an actor switching in period 2) has
+    # change probability near 1 there and near 0 elsewhere (Matias & Miele 2017)
+    rng = np.random.default_rng(5)
+    n, B = 40, 2
+    z = np.repeat([0, 1], n // 2)
+    names = [f"a{i}" for i in range(n)]
+    periods = []
+    for t in range(4):
+        zt = z.copy()
+        if t >= 2:
+            zt[0] = 1
+        periods.append((names, [planted_sbm(zt, B, 12.0, 1.0, rng)], [False]))
+    fit = DynamicSBM(B, seed=1, model="bernoulli").fit(periods)
+    for t in (1, 2, 3):
+        pw = fit.pairwise_[t]
+        assert np.allclose(pw.sum(axis=2), fit.posteriors_[t - 1], atol=1e-6)
+        assert np.allclose(pw.sum(axis=1), fit.posteriors_[t], atol=1e-6)
+    assert fit.change_probability_[2][0] > 0.95
+    others = np.concatenate([fit.change_probability_[t][1:] for t in (1, 2, 3)] + [fit.change_probability_[1][:1]])
+    assert others.max() < 0.05
+
+
+@pytest.mark.parametrize("snr, low, high", [(0.03, -0.05, 0.1), (0.7, 0.4, 1.0), (3.0, 0.9, 1.0)])
+def test_recovery_below_near_and_above_the_dynamic_detectability_limit(snr, low, high):
+    # source: Ghasemian, Zhang, Clauset, Moore & Peel (2016), Phys. Rev. X 6, 031005: for two
+    # groups, stay probability eta and T -> infinity, positions are detectable iff
+    # c lambda^2 > (1 - eta^2) / (1 + eta^2) = 0.105 at eta = 0.9 (their eq. for the
+    # dynamic limit, from memory).  Below it (0.03) no method recovers them (mean ARI ~ 0);
+    # near it (0.7: below the one-period limit 1, where each period alone is undetectable)
+    # recovery is partial but real; far above (3.0) it is near perfect.  Measured with
+    # n = 300, 6 periods, seed 11: ARI 0.00, 0.61, 0.99+.  At this finite size variational EM
+    # still fails at 0.5 (ARI 0.00): the finite-size algorithmic threshold lies above the
+    # asymptotic limit, so "near" here means within a factor of 7.
+    rng = np.random.default_rng(11)
+    n, T, B, c = 300, 6, 2, 8.0
+    lam = np.sqrt(snr / c)
+    zs = markov_positions(n, T, B, 0.9, rng)
+    mats = [planted_sbm(z, B, c * (1 + lam), c * (1 - lam), rng) for z in zs]
+    names = [f"a{i}" for i in range(n)]
+    fit = DynamicSBM(B, restarts=2).fit([(names, [A], [False]) for A in mats])
+    ari = np.mean([adjusted_rand_score(z, fit.labels_[t]) for t, z in enumerate(zs)])
+    assert low <= ari <= high, ari
+
+
+def test_a_position_founded_mid_series_is_born_then_and_recruits_are_dated():
+    # source: planted dynamic blockmodel (Matias & Miele 2017) with a birth: three groups
+    # of 15 from period 0; a founder, absent before period 3, starts a fourth position
+    # there; it recruits two actors in period 4 and one in period 5.  Poisson counts per
+    # pair: 0.8 inside a position, 0.03 between (common practice for planted partitions).
+    # Known limit: at 0.4 inside, the quietest actor of an old group already sits in the
+    # new position's slot in early periods (a position with few ties explains a quiet
+    # actor), and the birth is not found (degree correction may help there; not measured).
+    rng = np.random.default_rng(21)
+    n, T = 46, 7
+    z = np.tile(np.repeat([0, 1, 2, 3], [15, 15, 15, 1]), (T, 1))
+    z[4:, [0, 16]] = 3
+    z[5:, 30] = 3
+    names = [f"a{i}" for i in range(n)]
+    periods = []
+    for t in range(T):
+        present = np.arange(n) if t >= 3 else np.arange(n - 1)  # the founder (last) is absent before 3
+        zt = z[t, present]
+        rate = np.where(zt[:, None] == zt[None, :], 0.8, 0.03)
+        upper = np.triu(rng.poisson(rate), 1).astype(float)
+        periods.append(([names[i] for i in present], [sp.csr_array(upper + upper.T)], [False]))
+    fit = DynamicSBM(4, seed=0).fit(periods)
+    new = fit.labels_[3][-1]  # the founder's position
+    assert fit.births_[new] == 3
+    assert all((fit.labels_[t] != new).all() for t in range(3))  # empty before it is born
+    # the recruits' moves are dated exactly, with a change probability near 1
+    for actor, when in ((0, 4), (16, 4), (30, 5)):
+        assert fit.labels_[when - 1][actor] != new and fit.labels_[when][actor] == new
+        assert fit.change_probability_[when][actor] > 0.9
