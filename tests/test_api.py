@@ -63,7 +63,7 @@ def test_joint_option_is_deprecated_and_runs_the_dynamic_method(tmp_path):
 
 @pytest.mark.parametrize("kwargs, words", [
     ({"smoothing": 2.0}, "drop --smooth"),
-    ({"options": {"linkage": "average"}}, "no option 'linkage'"),
+    ({"options": {"linkage": "average"}}, "--linkage does not apply to method dynamic"),
     ({"options": {"model": "bernoulli", "degree_corrected": True}}, "counts only"),
 ])
 def test_dynamic_settings_are_honoured_or_refused(kwargs, words):

@@ -30,7 +30,8 @@ def auto_table(fit_periods: pd.DataFrame) -> pd.DataFrame:
         return pd.DataFrame(columns=["period", "k", "inconsistencies", "density_correlation", "chosen", "rule"])
     frame = pd.DataFrame(rows)
     frame["k"] = frame["k"].astype(int)
-    frame["inconsistencies"] = frame["inconsistencies"].astype(int)
+    if "inconsistencies" in frame and frame["inconsistencies"].notna().all():
+        frame["inconsistencies"] = frame["inconsistencies"].astype(int)
     frame["chosen"] = frame["chosen"].astype(bool)
     return frame
 

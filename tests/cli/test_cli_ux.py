@@ -187,7 +187,8 @@ def test_show_fits_80_columns_lists_members_and_tie_counts(planted):
 
 def test_auto_prints_its_table_and_reason_and_exports_a_table(planted):
     db, _, tmp = planted
-    out = _run(db, "fit", "--positions", "auto", "--k-range", "2-5", "--smooth", "off", "--draws", "0")
+    out = _run(db, "fit", "--method", "structural", "--positions", "auto", "--k-range", "2-5", "--smooth", "off",
+               "--draws", "0")
     assert "Numbers of positions tried" in out and "chosen number of positions:" in out
     table = pd.read_csv(io.StringIO(_run(db, "export", "positions-auto")))
     assert set(table["k"]) == {2, 3, 4, 5}
@@ -214,8 +215,8 @@ def test_integers_print_as_integers(planted):
 
 def test_fits_tell_fits_apart(planted):
     db, _, _ = planted
-    _run(db, "fit", "--positions", "3", "--draws", "0")
-    _run(db, "fit", "--positions", "2", "--draws", "0", "--smooth", "off")
+    _run(db, "fit", "--method", "structural", "--positions", "3", "--draws", "0")
+    _run(db, "fit", "--method", "structural", "--positions", "2", "--draws", "0", "--smooth", "off")
     fits = pd.read_csv(io.StringIO(_run(db, "fits", "--format", "csv")))
     assert fits["positions"].astype(str).tolist() == ["3", "2"]
     assert fits["smoothing"].tolist() == ["auto", "off"]

@@ -113,9 +113,9 @@ def check_options(method: str, options: Mapping[str, Any]) -> dict:
     """
     from tracker.blockmodel.positions import METHODS
 
-    if method not in METHODS:
-        raise UsageError(f"unknown method {method!r}; use one of: {', '.join(METHODS)}")
     table = _table()
+    if method not in METHODS and method not in table:
+        raise UsageError(f"unknown method {method!r}; use one of: {', '.join([*table, *(m for m in METHODS if m not in table)])}")
     if method not in table:
         return dict(options)  # a method registered without a table takes what it takes
     spec = table[method]
@@ -182,12 +182,9 @@ def check_request(
         if settings.method == "regular":
             raise UsageError("--smooth does not apply to method regular (regular equivalence has no blockmodel "
                              "likelihood to penalise); drop --smooth or use --smooth off")
-        if opts.get("joint"):
-            raise UsageError("--joint already links periods through its Markov chain; drop --smooth")
-    if settings.method == "sbm" and not opts.get("joint") and ({"max_iter", "tol"} & set(opts)):
-        raise UsageError("max_iter and tol control the joint model; add joint=True (--joint) or drop them")
-    if opts.get("joint") and auto:
-        raise UsageError("--joint needs a fixed number of positions (--positions K)")
+        if settings.method == "dynamic":
+            raise UsageError("the dynamic model links periods through its Markov chain; drop --smooth "
+                             "(or choose a descriptive method to smooth)")
     warnings = []
     tied = [int(t) for t in tied]
     if not auto and tied:

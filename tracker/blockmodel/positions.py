@@ -124,10 +124,15 @@ def _method_options() -> dict:
             "degree_corrected": Option("degree_corrected", bool, "--degree-corrected"),
             "restarts": restarts,
             "max_sweeps": sweeps,
-            "joint": Option("joint", bool, "--joint"),
-            # the joint (dynamic) model's own iteration controls (tracker.blockmodel.sbm_dynamic)
+        },
+        # Not a per-period method: one model over all periods (tracker.pipeline.fitting.fit_dynamic).
+        "dynamic": {
+            "model": Option("model", str, "--model", choices=("poisson", "bernoulli")),
+            "degree_corrected": Option("degree_corrected", bool, "--degree-corrected"),
+            "restarts": restarts,
             "max_iter": Option("max_iter", int, "max_iter", low=1),
             "tol": Option("tol", float, "tol", low=1e-15),
+            "births": Option("births", bool, "births"),
         },
     }
 

@@ -71,9 +71,11 @@ def with_fit_tests(store, settings, results: list) -> list:
     ``settings`` (method, positions or ``auto`` with its range, options,
     seed) on the data and on ``settings.draws`` null draws; all refits of all
     periods go to one :func:`tracker.execution.map_tasks` batch.  With
-    smoothing or a joint fit, the stored partition links periods, but the
-    test is of the period alone: whether this period's ties hold positions
-    that the same method does not find in networks without them.
+    smoothing or the dynamic model, the stored partition links periods, but
+    the test is of the period alone: whether this period's ties hold positions
+    that the same method (for the dynamic model: the period's stochastic
+    blockmodel, the same likelihood on one period) does not find in networks
+    without them.
     """
     import dataclasses
 
@@ -81,10 +83,13 @@ def with_fit_tests(store, settings, results: list) -> list:
 
     if not settings.draws or not results:
         return results
+    method = settings.method
     options = {k: v for k, v in settings.options.items() if k != "joint"}
-    if settings.options.get("joint"):
+    if is_dynamic(settings):
+        # The dynamic model restricted to one period is the period's stochastic blockmodel.
+        method = "sbm"
         options = {k: v for k, v in options.items() if k in ("model", "degree_corrected", "restarts")}
-    procedure = Procedure(method=settings.method, positions=settings.positions, seed=settings.seed,
+    procedure = Procedure(method=method, positions=settings.positions, seed=settings.seed,
                           criterion=settings.criterion, alpha=settings.alpha, cut=settings.cut,
                           k_range=(settings.k_min, settings.k_max), options=options)
     wanted = [r.period for r in results]
@@ -198,7 +203,10 @@ def fit_dynamic(snapshots: list, settings) -> list:
            "criterion": settings.criterion, "elbo": float(model.elbo_), "icl": float(model.icl_),
            "transition": np.round(model.transition_, 4).tolist(), "initial": np.round(model.initial_, 4).tolist()}
     if table is not None:
-        ran["auto"] = table
+        # The per-K table in the shape every --positions auto table has (tracker.views.auto_table).
+        ran["auto"] = [{"k": int(row["n_positions"]), "icl": float(row["icl"]), "elbo": float(row["elbo"]),
+                        "chosen": bool(row["chosen"])} for row in table]
+        ran["auto_rule"] = "the highest ICL of the dynamic model over all periods together"
     results = []
     for t, snap in enumerate(snapshots):
         change = model.change_probability_[t]
