@@ -117,13 +117,13 @@ class StructuralPositions:
             labels = np.arange(n) if n_positions >= n else np.zeros(n, dtype=np.int64)
         else:
             if self.measure == "euclidean":
-                dist = structural_distances(matrices, directed)
+                condensed = structural_distances(matrices, directed, condensed=True)
             else:
                 dist = structural_correlations(matrices, directed)
                 np.subtract(1.0, dist, out=dist)
                 np.fill_diagonal(dist, 0.0)
-            condensed = squareform(dist, checks=False)
-            del dist
+                condensed = squareform(dist, checks=False)
+                del dist
             self.linkage_ = linkage(condensed, method=method)
             labels = fcluster(self.linkage_, t=n_positions, criterion="maxclust")
             if labels.max() < n_positions:
