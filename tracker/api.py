@@ -217,8 +217,11 @@ class Study:
     ) -> dict:
         """Find positions in each period (all by default) and store the fit.
 
-        Returns ``{"fit": id, "periods": DataFrame}`` with one row per fitted
-        period (positions, inconsistencies, density correlation, p-value).
+        Returns ``{"fit": id, "periods": DataFrame, "notes": list}`` with one
+        row per fitted period (positions, inconsistencies, density correlation,
+        p-value) and one note per period where the method approximated (e.g.
+        structural positions above the exact limit; see
+        :mod:`tracker.blockmodel.embedding`).
         A fit with the same settings as an earlier one extends it (new
         periods) or refreshes it; other settings make a new fit.  Either way
         the fit becomes current.
@@ -257,7 +260,11 @@ class Study:
                 if progress is not None:
                     progress(snap.period)
         fit_id = self.store.save_fit(settings, results, __version__)
-        return {"fit": fit_id, "periods": self.store.fit_periods(fit_id).drop(columns=["diagnostics"])}
+        # Approximations a method made (large periods), one line per period.
+        notes = [f"{r.period}: {r.diagnostics['approximation']['note']}" for r in results
+                 if isinstance(r.diagnostics.get("approximation"), dict)]
+        return {"fit": fit_id, "periods": self.store.fit_periods(fit_id).drop(columns=["diagnostics"]),
+                "notes": notes}
 
     def _fit_joint(self, snapshots: list, settings) -> list:
         """One dynamic SBM over all periods (Matias & Miele 2017; Xu & Hero 2014).

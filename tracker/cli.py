@@ -321,6 +321,8 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
             options=options, smoothing=smoothing, progress=lambda _p: bar.advance(task),
         )
     click.echo(f"fit {result['fit']} ({method}, {criterion}, seed {seed}) is now current")
+    for note in result.get("notes", []):
+        click.echo(f"note: {note}")
     _emit(result["periods"], "table", None)
 
 
