@@ -169,12 +169,7 @@ class Study:
 
     def summary(self) -> pd.DataFrame:
         """One row per period and relation: actors, ties, density, reciprocity, isolates, mean_value, sparse."""
-        rows = []
-        for snap in self.store.snapshots():
-            for measures in network_measures(snap):
-                rows.append({"period": snap.period, **measures})
-        columns = ["period", "relation", "actors", "ties", "density", "reciprocity", "isolates", "mean_value", "sparse"]
-        return pd.DataFrame(rows, columns=columns)
+        return _summary_table(self.store.snapshots())
 
     def actors(self) -> pd.DataFrame:
         """Actors with roster range, attributes and aliases."""
@@ -430,7 +425,7 @@ class Study:
 
     # ------------------------------------------------------------------ structures
     def structures(self, *, fit: int | None = None, draws: int = 199, seed: int | None = None,
-                   raw_check: bool = True) -> pd.DataFrame:
+                   raw_check: bool = True, snapshots: Sequence[Snapshot] | None = None) -> pd.DataFrame:
         """The closest ideal image per period and relation, with its fit and significance.
 
         For each period and relation of the fit, the image under the fit's
@@ -444,6 +439,7 @@ class Study:
         Everett (1999) on the raw ties (``cp_correlation``,
         ``coreness_correlation``) check the image-level answer.  Positions are
         named by their track when the fit is aligned (see :meth:`align`).
+        ``snapshots`` may hold the fitted periods' snapshots when already read.
 
         Returns columns ``period, relation, ideal, variant, mismatches, fit,
         p_value, roles, changed, cp_correlation, coreness_correlation``.
@@ -459,6 +455,10 @@ class Study:
         names = self._position_names(info["id"])
         rows, labels, extra = [], {}, {}
         periods = [p for p in self.periods() if p in fp.index]
+        # One read of every period's ties (label order read once), not one query set per period.
+        if raw_check and snapshots is None:
+            snapshots = self.store.snapshots(periods)
+        snaps = {snap.period: snap for snap in snapshots} if raw_check else {}
         for period in periods:
             iso = fp.loc[period, "isolates_position"]
             part = blocks[blocks["period"] == period]
@@ -466,7 +466,7 @@ class Study:
                 part = part[(part["from_position"] != iso) & (part["to_position"] != iso)]
             kept = sorted(set(part["from_position"]))
             labels[period] = {k: names.get(period, {}).get(pos, f"P{pos}") for k, pos in enumerate(kept)}
-            snap = self.snapshot(period) if raw_check else None
+            snap = snaps[period] if raw_check else None
             for rel, sub in part.groupby("relation", sort=True):
                 if len(kept) < 2:
                     continue
@@ -677,13 +677,7 @@ class Study:
         tracks = self.store.tracks(fit_id)
         if tracks.empty:
             return tracks.assign(periods=[], mean_size=[])
-        members = self.memberships(fit_id)
-        sizes = members.groupby(["track", "period"]).size().groupby("track").agg(["count", "mean"])
-        tracks["periods"] = tracks["track"].map(sizes["count"]).fillna(0).astype(int)
-        tracks["mean_size"] = tracks["track"].map(sizes["mean"]).round(1)
-        tracks["name"] = [n if isinstance(n, str) else ("no ties" if iso else f"T{t}")
-                          for t, n, iso in zip(tracks["track"], tracks["name"], tracks["isolates"])]
-        return tracks
+        return _track_table(tracks, self.memberships(fit_id))
 
     def name_track(self, track: int, name: str, *, fit: int | None = None) -> None:
         """Name a track ("coordinating core"); the name is kept through re-alignment and updates."""
@@ -778,8 +772,8 @@ class Study:
         fit_id = info["id"]
         self._require_alignment(fit_id)
         periods = self._fitted_periods(fit_id)
-        tables: dict = {"summary": self.summary()}
-        tables["summary"] = tables["summary"][tables["summary"]["period"].isin(periods)]
+        snapshots = list(self.store.snapshots(periods))  # read once: summary and structures
+        tables: dict = {"summary": _summary_table(snapshots)}
         members = self.memberships(fit_id)
         tables["memberships"] = members
         blocks = self.store.blocks(fit_id)
@@ -790,13 +784,15 @@ class Study:
             blocks = blocks.merge(pos, on=["period", "from_position"], how="left")
             pos = positions.rename(columns={"position": "to_position", "track": "to_track"})
             blocks = blocks.merge(pos, on=["period", "to_position"], how="left")
-            tracks = self.tracks(fit_id)
+            tracks = _track_table(self.store.tracks(fit_id), members)  # as self.tracks, without a second read
             names = _track_names(tracks)
             tracks["kind"] = ["split" if not pd.isna(p) else "birth" for p in tracks["parent"]]
             tracks["parent"] = [names.get(int(p), f"T{int(p)}") if not pd.isna(p) else "" for p in tracks["parent"]]
             tables["tracks"] = tracks
             tables["moves"] = self.moves(fit_id)
-            tables["transitions"] = self.transitions(fit_id)
+            from tracker.longitudinal.movement import transitions
+
+            tables["transitions"] = transitions(members, periods)  # as self.transitions, without a second read
         tables["blocks"] = blocks
         fp = self.store.fit_periods(fit_id)
         diag = []
@@ -811,7 +807,7 @@ class Study:
         tables["diagnostics"] = pd.DataFrame(diag)
         tables["permutation"] = fp[["period", "density_correlation", "p_value"]].rename(
             columns={"density_correlation": "observed"})
-        structures = self.structures(fit=fit_id, draws=structure_draws)
+        structures = self.structures(fit=fit_id, draws=structure_draws, snapshots=snapshots)
         tables["structures"] = structures.drop(columns=["parts"], errors="ignore")
         tables["structure_sentences"] = self.structure_sentences(structures)
         params = info["params"]
@@ -861,6 +857,26 @@ class Study:
     def _require_alignment(self, fit_id: int) -> None:
         if self.store.track_positions(fit_id).empty:
             raise UsageError(f"fit {fit_id} is not aligned yet; run roletrail align first")
+
+
+def _summary_table(snapshots) -> pd.DataFrame:
+    """Network measures of each snapshot, one row per period and relation."""
+    rows = []
+    for snap in snapshots:
+        for measures in network_measures(snap):
+            rows.append({"period": snap.period, **measures})
+    columns = ["period", "relation", "actors", "ties", "density", "reciprocity", "isolates", "mean_value", "sparse"]
+    return pd.DataFrame(rows, columns=columns)
+
+
+def _track_table(tracks: pd.DataFrame, members: pd.DataFrame) -> pd.DataFrame:
+    """Stored tracks with their number of periods, mean size and display name."""
+    sizes = members.groupby(["track", "period"]).size().groupby("track").agg(["count", "mean"])
+    tracks["periods"] = tracks["track"].map(sizes["count"]).fillna(0).astype(int)
+    tracks["mean_size"] = tracks["track"].map(sizes["mean"]).round(1)
+    tracks["name"] = [n if isinstance(n, str) else ("no ties" if iso else f"T{t}")
+                      for t, n, iso in zip(tracks["track"], tracks["name"], tracks["isolates"])]
+    return tracks
 
 
 def _core_periphery_check(matrix, seed, discrete, continuous) -> tuple[float, float]:

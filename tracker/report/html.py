@@ -379,13 +379,49 @@ def _chart_specs(
 def javascript_bundle(vl_version: str | None = None) -> str:
     """Vega, Vega-Lite and vega-embed as one script (from vl-convert), cached.
 
-    The text is checked so it cannot close its ``<script>`` element early.
+    Bundling takes seconds (vl-convert runs a JavaScript bundler), the same
+    for every report, so the text is also kept on disk, one file per
+    vl-convert and Vega-Lite version, in ``$ROLETRAIL_CACHE`` or the user's
+    cache folder (``$XDG_CACHE_HOME/roletrail``, else ``~/.cache/roletrail``);
+    where that cannot be written it is bundled every time.  The text is checked
+    so it cannot close its ``<script>`` element early.
     """
     import vl_convert as vlc
 
-    bundle = vlc.javascript_bundle(vl_version=vl_version or vegalite_version())
+    version = vl_version or vegalite_version()
+    cached = _bundle_cache_file(getattr(vlc, "__version__", "unknown"), version)
+    try:
+        bundle = cached.read_text(encoding="utf-8")
+    except OSError:
+        bundle = vlc.javascript_bundle(vl_version=version)
+        _write_quietly(cached, bundle)
     # "</script" or "<!--" inside a script element would end or confuse it.
     return bundle.replace("</script", "<\\/script").replace("<!--", "<\\!--")
+
+
+def _bundle_cache_file(vlc_version: str, vl_version: str | None):
+    import os
+    from pathlib import Path
+
+    root = os.environ.get("ROLETRAIL_CACHE") or os.path.join(
+        os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache"), "roletrail")
+    safe = "".join(c if c.isalnum() or c in "._-" else "_" for c in f"{vlc_version}-{vl_version}")
+    return Path(root) / f"vega-bundle-{safe}.js"
+
+
+def _write_quietly(path, text: str) -> None:
+    """Write ``text`` to ``path`` atomically (a temporary file, then a rename); give up silently."""
+    import os
+    import tempfile
+
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=".bundle-")
+        with os.fdopen(fd, "w", encoding="utf-8") as handle:
+            handle.write(text)
+        os.replace(tmp, path)
+    except OSError:
+        pass
 
 
 def script_json(value: object) -> str:
