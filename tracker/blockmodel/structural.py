@@ -22,6 +22,7 @@ from typing import Sequence
 import numpy as np
 from scipy.cluster.hierarchy import cut_tree, fcluster, linkage
 from scipy.spatial.distance import squareform
+from threadpoolctl import threadpool_limits
 
 from tracker.blockmodel.embedding import (
     EXACT_LIMIT,
@@ -195,9 +196,12 @@ class StructuralPositions:
                                    "note": f"{n} actors merged into {m} distinct profiles, then clustered "
                                            f"exactly ({method} linkage)"}
             return sub[classes]
-        coords, energy, residual = embed_profiles(
-            profiles[reps], self.components, self.seed, standardise=self.measure == "correlation")
-        sub = embedded_positions(coords, counts, n_positions, self.seed)
+        # One BLAS/OpenMP thread: these products are tall and thin (n x 42), memory-bound;
+        # measured on the shared 2-core machine, two threads made them 3-10x slower.
+        with threadpool_limits(limits=1):
+            coords, energy, residual = embed_profiles(
+                profiles[reps], self.components, self.seed, standardise=self.measure == "correlation")
+            sub = embedded_positions(coords, counts, n_positions, self.seed)
         what = "structural distances" if self.measure == "euclidean" else "distances of standardised profiles"
         self.approximation_ = {
             **info, "method": "randomized SVD + weighted k-means", "components": int(coords.shape[1]),
