@@ -22,6 +22,7 @@ actors), by least squares over the sizes measured.
     python tests/benchmarks/bench_scaling.py --actors 300,1200 --periods 5,20
     python tests/benchmarks/bench_scaling.py --actors 50000 --periods 20 --steps import,fit-off,align-off
     python tests/benchmarks/bench_scaling.py --actors 300 --periods 5 --json out.json   # also keep the rows
+    python tests/benchmarks/bench_scaling.py --actors 20000 --periods 5 --align-draws 0 --memory-limit 12
 
 A step that runs past ``--timeout`` seconds (default 1800) is stopped and shown
 as ``>T``; the steps after it that need it are skipped.
@@ -105,7 +106,9 @@ def run_step(step: str, db: Path, csv: Path, report: Path) -> dict:
         elif step == "fit":
             out["notes"] = len(study.fit(positions=4)["notes"])
         elif step in ("align-off", "align"):
-            out["moves"] = len(study.align()["moves"])
+            draws = os.environ.get("BENCH_ALIGN_DRAWS")
+            kwargs = {} if draws is None else {"draws": int(draws)}
+            out["moves"] = len(study.align(**kwargs)["moves"])
         elif step == "report":
             study.report(report)
             out["report_mb"] = report.stat().st_size / 2**20
@@ -114,7 +117,7 @@ def run_step(step: str, db: Path, csv: Path, report: Path) -> dict:
     return out
 
 
-def measure(n: int, periods: int, steps, timeout: float, base: float) -> list[dict]:
+def measure(n: int, periods: int, steps, timeout: float, base: float, env: dict | None = None) -> list[dict]:
     rows = []
     with tempfile.TemporaryDirectory() as tmp:
         tmp = Path(tmp)
@@ -132,12 +135,13 @@ def measure(n: int, periods: int, steps, timeout: float, base: float) -> list[di
                 continue
             cmd = [sys.executable, __file__, "--step", step, str(db), str(csv), str(report)]
             try:
-                proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout)
+                proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout, env=env)
             except subprocess.TimeoutExpired:
                 row["status"] = f">{timeout:.0f} s"
             else:
                 if proc.returncode:
-                    row["status"] = "failed: " + (proc.stderr.strip().splitlines() or ["?"])[-1][:200]
+                    last = (proc.stderr.strip().splitlines() or [f"exit status {proc.returncode}"])[-1]
+                    row["status"] = "failed: " + last[:200]
                 else:
                     row.update(json.loads(proc.stdout.strip().splitlines()[-1]))
                     row["status"] = "ok"
@@ -199,6 +203,10 @@ def table(rows: list[dict]) -> str:
 def main() -> None:
     if len(sys.argv) > 1 and sys.argv[1] == "--step":
         step, db, csv, report = sys.argv[2], Path(sys.argv[3]), Path(sys.argv[4]), Path(sys.argv[5])
+        limit = os.environ.get("BENCH_MEMORY_GB")
+        if limit:  # a step that needs more stops with MemoryError instead of starving the machine
+            cap = int(float(limit) * 2**30)
+            resource.setrlimit(resource.RLIMIT_AS, (cap, cap))
         print(json.dumps(run_step(step, db, csv, report)))
         return
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
@@ -207,17 +215,24 @@ def main() -> None:
     parser.add_argument("--steps", default=",".join(STEPS), help=f"comma-separated, of {', '.join(STEPS)}")
     parser.add_argument("--timeout", type=float, default=1800.0, help="seconds per step")
     parser.add_argument("--json", help="append the rows to this JSON file (one list)")
+    parser.add_argument("--align-draws", type=int, help="bootstrap draws of align (default: the API's)")
+    parser.add_argument("--memory-limit", type=float, help="GB of address space per step (RLIMIT_AS)")
     args = parser.parse_args()
     steps = [s.strip() for s in args.steps.split(",") if s.strip()]
     unknown = set(steps) - set(STEPS)
     if unknown:
         parser.error(f"unknown steps {sorted(unknown)}; use of {', '.join(STEPS)}")
+    env = dict(os.environ)
+    if args.align_draws is not None:
+        env["BENCH_ALIGN_DRAWS"] = str(args.align_draws)
+    if args.memory_limit:
+        env["BENCH_MEMORY_GB"] = str(args.memory_limit)
     base = baseline()
     print(f"baseline (2,000^2 matmul + Ward of 3,000 points): {base:.2f} s; cores: {os.cpu_count()}", flush=True)
     rows = []
     for n in (int(a) for a in args.actors.split(",")):
         for t in (int(p) for p in args.periods.split(",")):
-            rows += measure(n, t, steps, args.timeout, base)
+            rows += measure(n, t, steps, args.timeout, base, env)
     if args.json:
         path = Path(args.json)
         old = json.loads(path.read_text()) if path.exists() else []

@@ -220,3 +220,21 @@ def test_javascript_bundle_is_read_from_the_disk_cache(tmp_path, monkeypatch):
         assert report_html.javascript_bundle() == "var cached = 1; // <\\/script>"
     finally:
         report_html.javascript_bundle.cache_clear()
+
+
+def test_long_moves_tables_list_the_surest_moves_and_say_so(monkeypatch):
+    # Brute force over the stated rule: above the limit, the rows are the moves
+    # of highest confidence (pandas nlargest), and the page names the total.
+    from tracker.report import html as report_html
+
+    tables, periods, meta = make_tables()
+    moves = tables["moves"]
+    monkeypatch.setattr(report_html, "MOVES_LIMIT", 2)
+    page = build_report(tables, periods, meta)
+    section = page[page.index('<section id="moves">'):]
+    section = section[: section.index("</section>")]
+    body = section[section.index("<tbody>"):section.index("</tbody>")]
+    assert body.count("<tr") == 2
+    assert f"2 of the {len(moves):,} moves" in section
+    for conf in moves["confidence"].nlargest(2):
+        assert f">{conf:.2f}" in body

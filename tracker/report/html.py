@@ -31,7 +31,10 @@ from tracker.report.narrative import (
     moves_from_memberships,
 )
 
-__all__ = ["CAUTIONS", "build_report", "javascript_bundle", "script_json"]
+__all__ = ["CAUTIONS", "MOVES_LIMIT", "build_report", "javascript_bundle", "script_json"]
+
+#: Most rows of the moves table (more would make the page tens of megabytes).
+MOVES_LIMIT = 2000
 
 #: What a reader must keep in mind (shown in every report).
 CAUTIONS = (
@@ -283,6 +286,13 @@ def _moves_section(
             ("From track", "number"), ("To track", "number"), ("Confidence", "number")]
     rows = []
     frame = moves.assign(_k=moves["to_period"].astype(str).map(order))
+    if len(frame) > MOVES_LIMIT:
+        # A page of rows, not hundreds of thousands: the surest moves first.
+        sure = pd.to_numeric(frame["confidence"], errors="coerce").fillna(-1.0)
+        frame = frame.assign(_sure=-sure).sort_values(["_sure", "_k", "actor"], kind="stable").head(MOVES_LIMIT)
+        out.append(f"<p class=\"note\">The table lists {MOVES_LIMIT:,} of the {len(moves):,} moves: those of "
+                   "highest confidence (then the earliest). <code>roletrail export moves</code> writes them "
+                   "all.</p>")
     frame = frame.sort_values(["_k", "actor"], kind="stable")
     for rec in frame.to_dict("records"):
         conf = rec.get("confidence")
