@@ -24,8 +24,8 @@ from scipy.cluster.hierarchy import cut_tree, fcluster, linkage
 from scipy.spatial.distance import squareform
 from threadpoolctl import threadpool_limits
 
+from tracker.blockmodel import embedding
 from tracker.blockmodel.embedding import (
-    EXACT_LIMIT,
     N_COMPONENTS,
     embed_profiles,
     embedded_positions,
@@ -81,8 +81,9 @@ class StructuralPositions:
         mean adjusted Rand index 0.56 with Ward, 0.13 with average linkage.
         ``"ward"`` is valid only with Euclidean distances.
     measure : {"euclidean", "correlation"}, default "euclidean"
-    exact_limit : int, default 8,000
-        Largest number of actors clustered by the exact method above.  Its
+    exact_limit : int, optional
+        Largest number of actors clustered by the exact method above (default
+        :data:`tracker.blockmodel.embedding.EXACT_LIMIT`, 8,000).  Its
         condensed distance matrix alone takes ``4 n^2`` bytes (10 GB at 50,000
         actors), so larger periods switch automatically to
         :mod:`tracker.blockmodel.embedding`: actors with identical profiles are
@@ -127,7 +128,7 @@ class StructuralPositions:
     .. [2] Wasserman, S. & Faust, K. (1994). Social Network Analysis, sec. 9.3-9.4.
     """
 
-    def __init__(self, n_positions, *, seed=0, linkage=None, measure="euclidean", exact_limit=EXACT_LIMIT,
+    def __init__(self, n_positions, *, seed=0, linkage=None, measure="euclidean", exact_limit=None,
                  components=N_COMPONENTS):
         self.n_positions = n_positions
         self.seed = seed
@@ -146,8 +147,8 @@ class StructuralPositions:
             raise UsageError(f"unknown measure {self.measure!r}; use 'euclidean' or 'correlation'")
         if method == "ward" and self.measure != "euclidean":
             raise UsageError("ward linkage needs Euclidean distances; use measure='euclidean' or linkage='average'")
-        for name in ("exact_limit", "components"):
-            value = getattr(self, name)
+        limit = embedding.EXACT_LIMIT if self.exact_limit is None else self.exact_limit
+        for name, value in (("exact_limit", limit), ("components", self.components)):
             if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < 1:
                 raise UsageError(f"{name} must be a whole number >= 1 (got {value!r}); e.g. {name}=8000")
         mats, dirs, n = _validate(matrices, directed)
@@ -155,8 +156,8 @@ class StructuralPositions:
         self.approximation_ = None
         if n_positions >= n or n_positions == 1:
             labels = np.arange(n) if n_positions >= n else np.zeros(n, dtype=np.int64)
-        elif n > self.exact_limit:
-            labels = self._fit_large(mats, dirs, n, n_positions, method)
+        elif n > limit:
+            labels = self._fit_large(mats, dirs, n, n_positions, method, limit)
         else:
             if self.measure == "euclidean":
                 condensed = structural_distances(matrices, directed, condensed=True)
@@ -178,17 +179,17 @@ class StructuralPositions:
         self.n_positions_ = int(self.labels_.max()) + 1 if n else 0
         return self
 
-    def _fit_large(self, mats, dirs, n: int, n_positions: int, method: str) -> np.ndarray:
+    def _fit_large(self, mats, dirs, n: int, n_positions: int, method: str, limit: int) -> np.ndarray:
         """Exact classes of identical profiles, then exact linkage or the embedding (see the class)."""
         profiles = profile_matrix(mats, dirs)
         classes, reps, counts = profile_classes(profiles)
         m = reps.size
-        info = {"actors": n, "distinct": m, "exact_limit": int(self.exact_limit)}
+        info = {"actors": n, "distinct": m, "exact_limit": int(limit)}
         if m <= n_positions:
             self.approximation_ = {**info, "method": "identical profiles",
                                    "note": f"{n} actors have {m} distinct profiles: one position each (exact)"}
             return classes
-        if m <= self.exact_limit and self.measure == "euclidean" and method in ("single", "complete", "weighted"):
+        if m <= limit and self.measure == "euclidean" and method in ("single", "complete", "weighted"):
             sq, gram = _structural_gram(mats, dirs, n)
             self.linkage_ = linkage(_condensed_distances(sq[reps], gram[reps][:, reps]), method=method)
             sub = fcluster(self.linkage_, t=n_positions, criterion="maxclust") - 1
@@ -207,7 +208,7 @@ class StructuralPositions:
             **info, "method": "randomized SVD + weighted k-means", "components": int(coords.shape[1]),
             "energy": round(energy, 4), "max_residual": float(residual.max()),
             "mean_residual": float(np.average(residual, weights=counts)),
-            "note": (f"{n} actors exceed the exact limit of {self.exact_limit}: positions approximated by k-means "
+            "note": (f"{n} actors exceed the exact limit of {limit}: positions approximated by k-means "
                      f"on a {coords.shape[1]}-component randomized SVD of the {m} distinct profiles "
                      f"(keeps {100 * energy:.1f}% of the profiles' squared length; {what} are "
                      f"underestimated by at most the two actors' residual norms, largest "
