@@ -238,12 +238,7 @@ class Study:
 
     def summary(self) -> pd.DataFrame:
         """One row per period and relation: actors, ties, density, reciprocity, isolates, mean_value, sparse."""
-        rows = []
-        for snap in self.store.snapshots():
-            for measures in network_measures(snap):
-                rows.append({"period": snap.period, **measures})
-        columns = ["period", "relation", "actors", "ties", "density", "reciprocity", "isolates", "mean_value", "sparse"]
-        return pd.DataFrame(rows, columns=columns)
+        return _summary_table(self.store.snapshots())
 
     def actors(self) -> pd.DataFrame:
         """Actors with roster range, attributes and aliases."""
@@ -292,7 +287,10 @@ class Study:
         period (positions, inconsistencies, density correlation, fit-test
         p-value against ``draws`` refits on ``null_model`` draws, its
         Benjamini-Hochberg ``q_value`` across the fit's periods; see
-        :mod:`tracker.inference.fit_test`).
+        :mod:`tracker.inference.fit_test`), ``warnings``, the per-K table ``auto``
+        and ``notes``: one per period where the method approximated (e.g.
+        structural positions above the exact limit; see
+        :mod:`tracker.blockmodel.embedding`).
         A fit with the same settings as an earlier one extends it (new
         periods) or refreshes it; other settings make a new fit.  Either way
         the fit becomes current.
@@ -340,12 +338,17 @@ class Study:
         fit_id = self.store.save_fit(settings, results, __version__)
         from tracker.views import auto_table
 
+        # Approximations a method made (large periods), one line per period.
+        notes = [f"{r.period}: {r.diagnostics['approximation']['note']}" for r in results
+                 if isinstance(r.diagnostics.get("approximation"), dict)]
+
         stored = self.store.fit_periods(fit_id)
         auto = auto_table(stored[stored["period"].isin(labels)])
         if settings.positions == "auto" and auto.empty:
             warnings.append("the number of positions was chosen once for all periods together (smoothed fit); "
                             "its per-K table is not kept: fit with --smooth off to see each period's table")
-        return {"fit": fit_id, "periods": with_q_values(stored).drop(columns=["diagnostics"]), "warnings": warnings, "auto": auto}
+        return {"fit": fit_id, "periods": with_q_values(stored).drop(columns=["diagnostics"]), "warnings": warnings,
+                "auto": auto, "notes": notes}
 
     def fits(self) -> pd.DataFrame:
         """Every stored fit with its settings; ``current`` marks the one other verbs use."""
@@ -431,7 +434,8 @@ class Study:
     # ------------------------------------------------------------------ structures
     @_computing
     def structures(self, *, fit: int | None = None, draws: int = 199, seed: int | None = None,
-                   raw_check: bool = True, basis: str = "ties") -> pd.DataFrame:
+                   raw_check: bool = True, basis: str = "ties",
+                   snapshots: Sequence[Snapshot] | None = None) -> pd.DataFrame:
         """The closest ideal image per period and relation, with its fit and significance.
 
         For each period and relation of the fit, the blocks (without the
@@ -453,6 +457,7 @@ class Study:
         Everett (1999) on the raw ties (``cp_correlation``,
         ``coreness_correlation``) check the image-level answer.  Positions are
         named by their track when the fit is aligned (see :meth:`align`).
+        ``snapshots`` may hold the fitted periods' snapshots when already read.
 
         Returns columns ``period, relation, ideal, variant, mismatches, fit,
         p_value, roles, changed, q_value, fit_q_value, significant, structure,
@@ -471,6 +476,10 @@ class Study:
         names = self._position_names(info["id"])
         rows, labels, extra, tasks = [], {}, {}, []
         periods = [p for p in self.periods() if p in fp.index]
+        # One read of every period's ties (label order read once), not one query set per period.
+        if raw_check and snapshots is None:
+            snapshots = self.store.snapshots(periods)
+        snaps = {snap.period: snap for snap in snapshots} if raw_check else {}
         for period in periods:
             iso = fp.loc[period, "isolates_position"]
             part = blocks[blocks["period"] == period]
@@ -480,7 +489,7 @@ class Study:
             labels[period] = {k: names.get(period, {}).get(pos, f"P{pos}") for k, pos in enumerate(kept)}
             if len(kept) < 2:
                 continue
-            snap = self.snapshot(period) if raw_check else None
+            snap = snaps[period] if raw_check else None
             values = "density" if basis == "ties" else "image"
             images = [(rel, sub.pivot(index="from_position", columns="to_position", values=values).loc[kept, kept].to_numpy(),
                        None if snap is None else snap.matrix(rel))
@@ -590,13 +599,7 @@ class Study:
         tracks = self.store.tracks(fit_id)
         if tracks.empty:
             return tracks.assign(periods=[], mean_size=[])
-        members = self.memberships(fit_id)
-        sizes = members.groupby(["track", "period"]).size().groupby("track").agg(["count", "mean"])
-        tracks["periods"] = tracks["track"].map(sizes["count"]).fillna(0).astype(int)
-        tracks["mean_size"] = tracks["track"].map(sizes["mean"]).round(1)
-        tracks["name"] = [n if isinstance(n, str) else ("no ties" if iso else f"T{t}")
-                          for t, n, iso in zip(tracks["track"], tracks["name"], tracks["isolates"])]
-        return tracks
+        return _track_table(tracks, self.memberships(fit_id))
 
     def name_track(self, track: int, name: str, *, fit: int | None = None) -> None:
         """Name a track ("coordinating core"); the name is kept through re-alignment and updates."""
@@ -720,8 +723,8 @@ class Study:
         fit_id = info["id"]
         self._require_alignment(fit_id)
         periods = self._fitted_periods(fit_id)
-        tables: dict = {"summary": self.summary()}
-        tables["summary"] = tables["summary"][tables["summary"]["period"].isin(periods)]
+        snapshots = list(self.store.snapshots(periods))  # read once: summary and structures
+        tables: dict = {"summary": _summary_table(snapshots)}
         members = self.memberships(fit_id)
         tables["memberships"] = members
         blocks = self.store.blocks(fit_id)
@@ -732,13 +735,15 @@ class Study:
             blocks = blocks.merge(pos, on=["period", "from_position"], how="left")
             pos = positions.rename(columns={"position": "to_position", "track": "to_track"})
             blocks = blocks.merge(pos, on=["period", "to_position"], how="left")
-            tracks = self.tracks(fit_id)
+            tracks = _track_table(self.store.tracks(fit_id), members)  # as self.tracks, without a second read
             names = track_names(tracks)
             tracks["kind"] = ["split" if not pd.isna(p) else "birth" for p in tracks["parent"]]
             tracks["parent"] = [names.get(int(p), f"T{int(p)}") if not pd.isna(p) else "" for p in tracks["parent"]]
             tables["tracks"] = tracks
             tables["moves"] = self.moves(fit_id)
-            tables["transitions"] = self.transitions(fit_id)
+            from tracker.longitudinal.movement import transitions
+
+            tables["transitions"] = transitions(members, periods)  # as self.transitions, without a second read
         tables["blocks"] = blocks
         fp = self.store.fit_periods(fit_id)
         diag = []
@@ -753,7 +758,7 @@ class Study:
         tables["diagnostics"] = pd.DataFrame(diag)
         tables["permutation"] = with_q_values(fp)[["period", "density_correlation", "p_value", "q_value"]].rename(
             columns={"density_correlation": "observed"})
-        structures = self.structures(fit=fit_id, draws=structure_draws)
+        structures = self.structures(fit=fit_id, draws=structure_draws, snapshots=snapshots)
         tables["structures"] = structures.drop(columns=["parts"], errors="ignore")
         tables["structure_sentences"] = self.structure_sentences(structures)
         params = info["params"]
@@ -831,3 +836,24 @@ class Study:
     def _require_alignment(self, fit_id: int) -> None:
         if self.store.track_positions(fit_id).empty:
             raise UsageError(f"fit {fit_id} is not aligned yet; run roletrail align first")
+
+
+def _summary_table(snapshots) -> pd.DataFrame:
+    """Network measures of each snapshot, one row per period and relation."""
+    rows = []
+    for snap in snapshots:
+        for measures in network_measures(snap):
+            rows.append({"period": snap.period, **measures})
+    columns = ["period", "relation", "actors", "ties", "density", "reciprocity", "isolates", "mean_value", "sparse"]
+    return pd.DataFrame(rows, columns=columns)
+
+
+def _track_table(tracks: pd.DataFrame, members: pd.DataFrame) -> pd.DataFrame:
+    """Stored tracks with their number of periods, mean size and display name."""
+    sizes = members.groupby(["track", "period"]).size().groupby("track").agg(["count", "mean"])
+    tracks["periods"] = tracks["track"].map(sizes["count"]).fillna(0).astype(int)
+    tracks["mean_size"] = tracks["track"].map(sizes["mean"]).round(1)
+    tracks["name"] = [n if isinstance(n, str) else ("no ties" if iso else f"T{t}")
+                      for t, n, iso in zip(tracks["track"], tracks["name"], tracks["isolates"])]
+    return tracks
+

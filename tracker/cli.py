@@ -469,6 +469,8 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
     click.echo(f"fit {result['fit']} ({method}, {criterion}, seed {seed}) is now current")
     for line in result.get("warnings", ()):
         click.echo(f"warning: {line}", err=True)
+    for note in result.get("notes", []):
+        click.echo(f"note: {note}")
     _emit(result["periods"], "table", None)
     _echo_auto(result.get("auto"))
 

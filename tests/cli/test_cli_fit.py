@@ -157,3 +157,25 @@ def test_structures_name_a_planted_core_periphery(tmp_path, new_db):
     exported = pd.read_csv(io.StringIO(_run(db, "export", "structures")))
     assert exported[["period", "ideal"]].equals(table[["period", "ideal"]])
     assert "core-periphery" in _run(db, "structures")
+
+
+def test_fit_says_when_structural_positions_are_approximated(fitted, monkeypatch):
+    # Above the exact limit (lowered here from 8,000 to 5 actors) the command
+    # prints one note per period and the store keeps the approximation's figures.
+    from tracker.blockmodel import embedding
+
+    db, truth, _ = fitted
+    monkeypatch.setattr(embedding, "EXACT_LIMIT", 5)
+    out = _run(db, "fit", "--positions", "3", "--smooth", "off", "--draws", "0")
+    notes = [line for line in out.splitlines() if line.startswith("note: ")]
+    assert len(notes) == 3 and all("distinct profiles" in line for line in notes)
+    with Study(db, create=False) as study:
+        for diag in study.fit_periods()["diagnostics"]:
+            # positions 1 and 2 have no inner ties: identical profiles, one each; the 6
+            # actors of position 0 are tied to each other, so each row differs (diagonal)
+            assert diag["approximation"]["actors"] == 18 and diag["approximation"]["distinct"] == 8
+        members = study.memberships()
+    # the planted positions are recovered exactly (sklearn's adjusted Rand index)
+    tied = members[~members["isolate"]]
+    for _, part in tied.groupby("period"):
+        assert adjusted_rand_score([truth[a] for a in part["actor"]], part["position"]) == 1.0

@@ -284,3 +284,26 @@ def test_save_chart_and_make_chart_refuse_unknown_names(report_tables, tmp_path)
         charts.save_chart(chart, tmp_path / "chart.gif")
     with pytest.raises(UsageError, match="unknown chart"):
         charts.make_chart("pie", tables, periods)
+
+
+def test_per_actor_charts_keep_the_actors_who_moved_most():
+    # Brute force over the definition: with more actors than the limit, the
+    # timeline rows and the trajectory choices are the actors with the most
+    # changes of track (counted here with pandas), and the title says so.
+    periods = [str(2000 + i) for i in range(6)]
+    rng = np.random.default_rng(1)
+    n = charts.ACTOR_LIMIT + 50
+    tracks = np.tile(rng.integers(1, 4, n), (6, 1))
+    movers = rng.choice(n, 40, replace=False)
+    tracks[3:, movers] = tracks[3:, movers] % 3 + 1  # 40 actors move once
+    m = pd.DataFrame({"period": np.repeat(periods, n), "actor": np.tile([f"a{i:03d}" for i in range(n)], 6),
+                      "position": 1, "track": tracks.ravel(), "isolate": False, "confidence": 1.0})
+    timeline = charts.timeline_chart(m, periods).to_dict()
+    shown = set(r["actor"] for r in _rows(timeline, timeline))
+    assert len(shown) == charts.ACTOR_LIMIT
+    assert {f"a{i:03d}" for i in movers} <= shown
+    assert f"{charts.ACTOR_LIMIT:,} of {n:,} actors" in timeline["title"]
+    trajectory = charts.trajectory_chart(m, periods, actor="a349").to_dict()
+    (param,) = trajectory["params"]
+    assert "a349" in param["bind"]["options"] and len(param["bind"]["options"]) <= charts.ACTOR_LIMIT + 1
+    assert {f"a{i:03d}" for i in movers} <= set(param["bind"]["options"])

@@ -203,3 +203,38 @@ def test_script_json_round_trips_and_cannot_close_a_script(value):
     text = script_json(value)
     assert json.loads(text) == value
     assert "<" not in text and ">" not in text and "&" not in text
+
+
+def test_javascript_bundle_is_read_from_the_disk_cache(tmp_path, monkeypatch):
+    # The bundle is kept on disk per vl-convert and Vega-Lite version: a file
+    # placed there is what the next report uses (escaped as any bundle).
+    import vl_convert as vlc
+
+    from tracker.report import html as report_html
+
+    monkeypatch.setenv("ROLETRAIL_CACHE", str(tmp_path))
+    path = report_html._bundle_cache_file(getattr(vlc, "__version__", "unknown"), report_html.vegalite_version())
+    path.write_text("var cached = 1; // </script>", encoding="utf-8")
+    report_html.javascript_bundle.cache_clear()
+    try:
+        assert report_html.javascript_bundle() == "var cached = 1; // <\\/script>"
+    finally:
+        report_html.javascript_bundle.cache_clear()
+
+
+def test_long_moves_tables_list_the_surest_moves_and_say_so(monkeypatch):
+    # Brute force over the stated rule: above the limit, the rows are the moves
+    # of highest confidence (pandas nlargest), and the page names the total.
+    from tracker.report import html as report_html
+
+    tables, periods, meta = make_tables()
+    moves = tables["moves"]
+    monkeypatch.setattr(report_html, "MOVES_LIMIT", 2)
+    page = build_report(tables, periods, meta)
+    section = page[page.index('<section id="moves">'):]
+    section = section[: section.index("</section>")]
+    body = section[section.index("<tbody>"):section.index("</tbody>")]
+    assert body.count("<tr") == 2
+    assert f"2 of the {len(moves):,} moves" in section
+    for conf in moves["confidence"].nlargest(2):
+        assert f">{conf:.2f}" in body

@@ -49,7 +49,7 @@ __all__ = [
 _REGE_BLOCK = 1 << 18
 
 
-def structural_distances(matrices: Sequence, directed: Sequence[bool]) -> np.ndarray:
+def structural_distances(matrices: Sequence, directed: Sequence[bool], *, condensed: bool = False) -> np.ndarray:
     r"""Euclidean distances of structural equivalence between all pairs of actors.
 
     .. math::
@@ -67,7 +67,10 @@ def structural_distances(matrices: Sequence, directed: Sequence[bool]) -> np.nda
     of the left-out entries, which with a zero diagonal is
     :math:`c \,(x_{ijr}^2 + x_{jir}^2)` per relation (``c = 2`` directed, ``1``
     undirected).  Time is that of the sparse products :math:`X X^T` and
-    :math:`X^T X`; memory is the ``n x n`` result plus the sparse products.
+    :math:`X^T X`; memory is the result plus the sparse products.  Only the
+    upper triangle (``i < j``) is computed, in blocks of rows, and mirrored, so
+    both triangles are equal bit for bit; ``condensed=True`` returns that
+    triangle alone (scipy's condensed form, half the memory of the square).
 
     Parameters
     ----------
@@ -75,10 +78,13 @@ def structural_distances(matrices: Sequence, directed: Sequence[bool]) -> np.nda
         Tie values, one matrix per relation.  The diagonal is ignored.
     directed : sequence of bool
         Whether each relation is directed.
+    condensed : bool, default False
+        Return the condensed upper triangle (as :func:`scipy.spatial.distance.squareform`
+        makes it) instead of the square matrix.
 
     Returns
     -------
-    numpy.ndarray, shape (n, n)
+    numpy.ndarray, shape (n, n) or (n (n - 1) / 2,)
         Symmetric, zero diagonal, float64.  Exact for integer tie values; for real
         values the identity loses a few ulps relative to the profile norms.
 
@@ -98,29 +104,10 @@ def structural_distances(matrices: Sequence, directed: Sequence[bool]) -> np.nda
            [1.   , 1.   , 1.414, 0.   ]])
     """
     mats, dirs, n = _validate(matrices, directed)
-    sq = np.zeros(n)
-    gram = sp.csr_array((n, n))  # cross products, less the left-out squares / 2
-    for x, is_dir in zip(mats, dirs):
-        s = x.multiply(x).tocsr()
-        sq += s.sum(axis=1)
-        gram = gram + x @ x.T
-        if is_dir:
-            sq += s.sum(axis=0)
-            gram = gram + x.T @ x
-            # Row and column parts each leave out x_ij^2 + x_ji^2.
-            gram = gram + (s + s.T)
-        else:
-            gram = gram + 0.5 * (s + s.T)
-    d2 = gram.toarray()
-    d2 *= -2.0
-    d2 += sq[:, None]
-    d2 += sq[None, :]
-    # Sparse products need not add terms in the same order for (i, j) and (j, i).
-    d2 += d2.T
-    d2 *= 0.5
-    np.maximum(d2, 0.0, out=d2)
-    np.fill_diagonal(d2, 0.0)
-    return np.sqrt(d2, out=d2)
+    sq, gram = _structural_gram(mats, dirs, n)
+    if condensed:
+        return _condensed_distances(sq, gram)
+    return _square_distances(sq, gram)
 
 
 def structural_correlations(matrices: Sequence, directed: Sequence[bool]) -> np.ndarray:
@@ -405,6 +392,76 @@ def _validate(matrices: Sequence, directed: Sequence[bool]):
         x.sort_indices()
         mats.append(x)
     return mats, directed, n
+
+
+
+def _structural_gram(mats, dirs, n):
+    """Squared profile norms and cross products less the left-out squares / 2 (see structural_distances)."""
+    sq = np.zeros(n)
+    gram = sp.csr_array((n, n))
+    for x, is_dir in zip(mats, dirs):
+        s = x.multiply(x).tocsr()
+        sq += s.sum(axis=1)
+        gram = gram + x @ x.T
+        if is_dir:
+            sq += s.sum(axis=0)
+            gram = gram + x.T @ x
+            # Row and column parts each leave out x_ij^2 + x_ji^2.
+            gram = gram + (s + s.T)
+        else:
+            gram = gram + 0.5 * (s + s.T)
+    return sq, sp.csr_array(gram)
+
+
+# Rows of the distance matrix computed at once: bounds the work array to about
+# _DIST_BLOCK_ELEMS elements (64 MiB of float64) whatever n is.
+_DIST_BLOCK_ELEMS = 1 << 23
+
+
+def _distance_row_blocks(sq, gram):
+    """Yield (i0, i1, d) with d[i - i0, j] the distance of rows i0 <= i < i1 to every j."""
+    n = sq.size
+    step = max(1, _DIST_BLOCK_ELEMS // max(n, 1))
+    for i0 in range(0, n, step):
+        i1 = min(i0 + step, n)
+        d2 = gram[i0:i1].toarray()
+        d2 *= -2.0
+        d2 += sq[i0:i1, None]
+        d2 += sq[None, :]
+        np.maximum(d2, 0.0, out=d2)
+        yield i0, i1, np.sqrt(d2, out=d2)
+
+
+def _square_distances(sq, gram):
+    """The n x n distances from the upper triangle, mirrored (exactly symmetric)."""
+    n = sq.size
+    out = np.empty((n, n))
+    for i0, i1, d in _distance_row_blocks(sq, gram):
+        out[i0:i1, i0:] = d[:, i0:]
+    # Sparse products need not add terms in the same order for (i, j) and (j, i):
+    # keep the upper triangle and mirror it, block by block (no n x n temporary).
+    step = max(1, _DIST_BLOCK_ELEMS // max(n, 1))
+    for i0 in range(0, n, step):
+        i1 = min(i0 + step, n)
+        out[i0:i1, :i0] = out[:i0, i0:i1].T
+        tri = out[i0:i1, i0:i1]
+        lower = np.tril_indices(i1 - i0, -1)
+        tri[lower] = tri.T[lower]
+    np.fill_diagonal(out, 0.0)
+    return out
+
+
+def _condensed_distances(sq, gram):
+    """The condensed upper triangle (scipy order: row by row, j > i)."""
+    n = sq.size
+    out = np.empty(n * (n - 1) // 2)
+    pos = 0
+    for i0, i1, d in _distance_row_blocks(sq, gram):
+        for k, i in enumerate(range(i0, i1)):
+            length = n - i - 1
+            out[pos:pos + length] = d[k, i + 1:]
+            pos += length
+    return out
 
 
 def _check_n_positions(n_positions) -> int:

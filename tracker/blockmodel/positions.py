@@ -213,7 +213,9 @@ def find_positions(
         (see :func:`tracker.blockmodel.goodness.fit_summary`, over all actors)
         and, for ``"auto"``, ``auto`` (one dict per ``K``: ``k``,
         ``inconsistencies``, ``density_correlation``, ``chosen``) and
-        ``auto_rule``.
+        ``auto_rule``; ``approximation`` when the method reports one (its
+        ``approximation_``, e.g. structural positions of a period above the
+        exact limit, see :mod:`tracker.blockmodel.embedding`).
 
     Notes
     -----
@@ -253,11 +255,12 @@ def find_positions(
     sub = [mat[index][:, index] for mat in matrices]
     options = _restrict(options, tied, n)
     diagnostics = {"method": method, "criterion": criterion, "n_positions_requested": n_positions}
+    notes: list = []  # approximations the method reports (``approximation_``), e.g. on large periods
 
     if m == 0:
         sub_labels = np.zeros(0, dtype=np.int64)
     elif auto:
-        sub_labels, table = _auto(cls, sub, directed, m, seed, criterion, alpha, cut, k_range, options)
+        sub_labels, table = _auto(cls, sub, directed, m, seed, criterion, alpha, cut, k_range, options, notes)
         diagnostics["auto"] = table
         diagnostics["auto_rule"] = getattr(cls, "auto_rule", None) or AUTO_RULE.format(gain=MIN_GAIN)
     else:
@@ -265,8 +268,10 @@ def find_positions(
         if k > m:
             diagnostics["note"] = f"{m} tied actors: fewer than the {k} positions asked for"
             k = m
-        sub_labels = _fit(cls, sub, directed, k, seed, options)
+        sub_labels = _fit(cls, sub, directed, k, seed, options, notes)
 
+    if notes:
+        diagnostics["approximation"] = notes[-1]
     labels, n_tied = _canonical(sub_labels, index, n)
     diagnostics["tied_positions"] = n_tied
     has_isolates = m < n
@@ -296,8 +301,10 @@ def _restrict(options: dict, tied: np.ndarray, n: int) -> dict:
     return out
 
 
-def _fit(cls, matrices, directed, k: int, seed: int, options: dict) -> np.ndarray:
+def _fit(cls, matrices, directed, k: int, seed: int, options: dict, notes: list | None = None) -> np.ndarray:
     model = cls(k, seed=seed, **options).fit(matrices, directed)
+    if notes is not None and getattr(model, "approximation_", None):
+        notes.append(model.approximation_)
     labels = np.asarray(model.labels_)
     n = matrices[0].shape[0]
     if labels.shape != (n,) or (n and labels.min() < 0):
@@ -305,7 +312,7 @@ def _fit(cls, matrices, directed, k: int, seed: int, options: dict) -> np.ndarra
     return labels.astype(np.int64)
 
 
-def _auto(cls, matrices, directed, m, seed, criterion, alpha, cut, k_range, options):
+def _auto(cls, matrices, directed, m, seed, criterion, alpha, cut, k_range, options, notes=None):
     """Fit every K of k_range and pick one by the elbow rule."""
     try:
         low, high = (int(k) for k in k_range)
@@ -318,7 +325,7 @@ def _auto(cls, matrices, directed, m, seed, criterion, alpha, cut, k_range, opti
         return _auto_by_likelihood(cls, matrices, directed, ks, seed, criterion, alpha, cut, options)
     fits, rows = [], []
     for k in ks:
-        labels = _fit(cls, matrices, directed, k, seed, options)
+        labels = _fit(cls, matrices, directed, k, seed, options, notes)
         _, compact = np.unique(labels, return_inverse=True)
         part = Partition(compact, int(compact.max()) + 1)
         stats = block_stats(matrices, directed, part)

@@ -29,11 +29,13 @@ import pandas as pd
 from tracker.errors import UsageError
 
 __all__ = [
+    "ACTOR_LIMIT",
     "CHARTS",
     "CHART_INPUTS",
     "NO_TIE_LABEL",
     "TRACK_COLOURS",
     "block_density_chart",
+    "busiest_actors",
     "fit_chart",
     "flow_chart",
     "make_chart",
@@ -95,6 +97,12 @@ def track_label(track: object, names: Mapping[int, str] | None = None) -> str:
     if names and number in names and not _missing(names[number]) and str(names[number]):
         return str(names[number])
     return NO_TIE_LABEL if number == 0 else f"T{number}"
+
+
+def _track_labels(tracks: pd.Series, names: Mapping[int, str] | None) -> pd.Series:
+    """:func:`track_label` of every entry, computed once per distinct track."""
+    labels = {t: track_label(t, names) for t in pd.unique(tracks)}
+    return tracks.map(labels)
 
 
 def track_names_from(tracks: pd.DataFrame | None) -> dict[int, str]:
@@ -165,7 +173,7 @@ def flow_chart(
         return _empty_chart("No memberships to draw.")
     m = _with_period_index(memberships[["period", "actor", "track"]], periods)
     m["track"] = m["track"].astype(int)
-    m["track_label"] = [track_label(t, track_names) for t in m["track"]]
+    m["track_label"] = _track_labels(m["track"], track_names)
 
     counts = m.groupby(["pidx", "track"], as_index=False).agg(n=("actor", "size"))
     counts = counts.sort_values(["pidx", "track"], kind="stable").reset_index(drop=True)
@@ -294,9 +302,9 @@ def _flow_bands(
     rows["y"] = rows["a0"] + (rows["b0"] - rows["a0"]) * ease[step]
     rows["y2"] = rows["y"] + rows["n"]
     rows["flow"] = np.where(rows["track_from"] == rows["track_to"], "stayed", "moved")
-    rows["track_label"] = [track_label(v, names) for v in rows["track_from"]]
+    rows["track_label"] = _track_labels(rows["track_from"], names)
     rows["from_label"] = rows["track_label"]
-    rows["to_label"] = [track_label(v, names) for v in rows["track_to"]]
+    rows["to_label"] = _track_labels(rows["track_to"], names)
     rows["from_period"] = [periods[i] for i in rows["pidx"]]
     rows["to_period"] = [periods[i + 1] for i in rows["pidx"]]
     keep = ["link", "x", "y", "y2", "n", "flow", "track_label", "from_label", "to_label",
@@ -437,6 +445,7 @@ def trajectory_chart(
     *,
     track_names: Mapping[int, str] | None = None,
     actor: object | None = None,
+    max_actors: int | None = None,
 ) -> alt.LayerChart:
     """One actor's track, period by period, chosen from a drop-down in the page.
 
@@ -453,11 +462,18 @@ def trajectory_chart(
         Period labels in time order.
     actor : optional
         The actor shown first (default: the first in sorted order).
+    max_actors : int, optional
+        Most actors in the drop-down (default :data:`ACTOR_LIMIT`): above it,
+        those who changed track most often (see :func:`busiest_actors`), plus
+        ``actor``; the title says how many of how many.  Every actor's path
+        would put all memberships into the page (megabytes at thousands of
+        actors) behind a list too long to use.
     """
     periods = _periods(periods)
     if memberships is None or len(memberships) == 0:
         return _empty_chart("No memberships to draw.")
     m = _actor_tracks(memberships, periods, track_names)
+    m, shown = _limit_actors(m, max_actors, keep=actor)
     m["no_tie"] = _isolate(m).map({True: "yes", False: "no"})
     actors = sorted(m["actor"].unique())
     first = str(actor) if actor is not None and str(actor) in actors else actors[0]
@@ -501,7 +517,7 @@ def trajectory_chart(
         alt.layer(line, points)
         .add_params(pick)
         .properties(width=max(420, 40 * len(periods)), height=240,
-                    title="One actor's track over time (choose the actor below)")
+                    title="One actor's track over time (choose the actor below)" + shown)
     )
 
 
@@ -511,18 +527,23 @@ def timeline_chart(
     *,
     track_names: Mapping[int, str] | None = None,
     row_height: int = 13,
+    max_actors: int | None = None,
 ) -> alt.Chart:
     """Every actor's track in every period: one row per actor, one colour per track.
 
     Rows are sorted by the track an actor starts in, then by label, so actors
     that start together sit together and a move shows as a change of colour
     along a row. Faded cells are memberships of low confidence; blank cells are
-    periods in which the actor was absent.
+    periods in which the actor was absent.  Above ``max_actors`` actors
+    (default :data:`ACTOR_LIMIT`) the rows are those who changed track most
+    often (:func:`busiest_actors`), and the title says how many of how many:
+    thousands of rows are neither readable nor small.
     """
     periods = _periods(periods)
     if memberships is None or len(memberships) == 0:
         return _empty_chart("No memberships to draw.")
     m = _actor_tracks(memberships, periods, track_names)
+    m, shown = _limit_actors(m, max_actors)
     first = m.sort_values("pidx", kind="stable").groupby("actor", as_index=False).first()
     first["start"] = first["track"].where(first["track"] > 0, 10**6)
     order = first.sort_values(["start", "pidx", "actor"], kind="stable")["actor"].tolist()
@@ -554,7 +575,7 @@ def timeline_chart(
         .properties(
             width=max(300, 28 * len(periods)),
             height=alt.Step(row_height),
-            title="Every actor's track, period by period",
+            title="Every actor's track, period by period" + shown,
         )
     )
 
@@ -919,9 +940,41 @@ def _actor_tracks(memberships: pd.DataFrame, periods: list[str], track_names) ->
     m = _with_period_index(memberships, periods)
     m["actor"] = m["actor"].astype(str)
     m["track"] = m["track"].astype(int)
-    m["track_label"] = [track_label(t, track_names) for t in m["track"]]
+    m["track_label"] = _track_labels(m["track"], track_names)
     m["certainty"] = _confidence(m)
     return m
+
+
+#: Most actors drawn one by one (timeline rows, trajectory choices) in a chart.
+ACTOR_LIMIT = 300
+
+
+def busiest_actors(m: pd.DataFrame, limit: int) -> list[str]:
+    """The ``limit`` actors who changed track most often, then by label.
+
+    ``m`` has columns ``actor``, ``pidx`` (period index) and ``track``; a
+    change is a different track at the actor's next presence.
+    """
+    m = m.sort_values(["actor", "pidx"], kind="stable")
+    same_actor = m["actor"].to_numpy()[1:] == m["actor"].to_numpy()[:-1]
+    changed = same_actor & (m["track"].to_numpy()[1:] != m["track"].to_numpy()[:-1])
+    counts = pd.Series(changed.astype(int), index=m["actor"].to_numpy()[1:]).groupby(level=0).sum()
+    counts = counts.reindex(m["actor"].unique(), fill_value=0)
+    ranked = sorted(counts.items(), key=lambda item: (-item[1], item[0]))
+    return [actor for actor, _ in ranked[:limit]]
+
+
+def _limit_actors(m: pd.DataFrame, max_actors: int | None, keep: object = None) -> tuple[pd.DataFrame, str]:
+    """At most ``max_actors`` actors of ``m`` (the busiest, plus ``keep``) and a title suffix."""
+    limit = ACTOR_LIMIT if max_actors is None else int(max_actors)
+    total = m["actor"].nunique()
+    if total <= limit:
+        return m, ""
+    chosen = set(busiest_actors(m, limit))
+    if keep is not None and str(keep) in set(m["actor"]):
+        chosen.add(str(keep))
+    out = m[m["actor"].isin(chosen)].reset_index(drop=True)
+    return out, f": {len(chosen):,} of {total:,} actors, those who changed track most often"
 
 
 def _with_period_index(frame: pd.DataFrame, periods: list[str]) -> pd.DataFrame:

@@ -31,7 +31,10 @@ from tracker.report.narrative import (
     moves_from_memberships,
 )
 
-__all__ = ["CAUTIONS", "build_report", "javascript_bundle", "script_json"]
+__all__ = ["CAUTIONS", "MOVES_LIMIT", "build_report", "javascript_bundle", "script_json"]
+
+#: Most rows of the moves table (more would make the page tens of megabytes).
+MOVES_LIMIT = 2000
 
 #: What a reader must keep in mind (shown in every report).
 CAUTIONS = (
@@ -284,6 +287,13 @@ def _moves_section(
             ("From track", "number"), ("To track", "number"), ("Confidence", "number")]
     rows = []
     frame = moves.assign(_k=moves["to_period"].astype(str).map(order))
+    if len(frame) > MOVES_LIMIT:
+        # A page of rows, not hundreds of thousands: the surest moves first.
+        sure = pd.to_numeric(frame["confidence"], errors="coerce").fillna(-1.0)
+        frame = frame.assign(_sure=-sure).sort_values(["_sure", "_k", "actor"], kind="stable").head(MOVES_LIMIT)
+        out.append(f"<p class=\"note\">The table lists {MOVES_LIMIT:,} of the {len(moves):,} moves: those of "
+                   "highest confidence (then the earliest). <code>roletrail export moves</code> writes them "
+                   "all.</p>")
     frame = frame.sort_values(["_k", "actor"], kind="stable")
     for rec in frame.to_dict("records"):
         conf = rec.get("confidence")
@@ -398,13 +408,49 @@ def _chart_specs(
 def javascript_bundle(vl_version: str | None = None) -> str:
     """Vega, Vega-Lite and vega-embed as one script (from vl-convert), cached.
 
-    The text is checked so it cannot close its ``<script>`` element early.
+    Bundling takes seconds (vl-convert runs a JavaScript bundler), the same
+    for every report, so the text is also kept on disk, one file per
+    vl-convert and Vega-Lite version, in ``$ROLETRAIL_CACHE`` or the user's
+    cache folder (``$XDG_CACHE_HOME/roletrail``, else ``~/.cache/roletrail``);
+    where that cannot be written it is bundled every time.  The text is checked
+    so it cannot close its ``<script>`` element early.
     """
     import vl_convert as vlc
 
-    bundle = vlc.javascript_bundle(vl_version=vl_version or vegalite_version())
+    version = vl_version or vegalite_version()
+    cached = _bundle_cache_file(getattr(vlc, "__version__", "unknown"), version)
+    try:
+        bundle = cached.read_text(encoding="utf-8")
+    except OSError:
+        bundle = vlc.javascript_bundle(vl_version=version)
+        _write_quietly(cached, bundle)
     # "</script" or "<!--" inside a script element would end or confuse it.
     return bundle.replace("</script", "<\\/script").replace("<!--", "<\\!--")
+
+
+def _bundle_cache_file(vlc_version: str, vl_version: str | None):
+    import os
+    from pathlib import Path
+
+    root = os.environ.get("ROLETRAIL_CACHE") or os.path.join(
+        os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache"), "roletrail")
+    safe = "".join(c if c.isalnum() or c in "._-" else "_" for c in f"{vlc_version}-{vl_version}")
+    return Path(root) / f"vega-bundle-{safe}.js"
+
+
+def _write_quietly(path, text: str) -> None:
+    """Write ``text`` to ``path`` atomically (a temporary file, then a rename); give up silently."""
+    import os
+    import tempfile
+
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=".bundle-")
+        with os.fdopen(fd, "w", encoding="utf-8") as handle:
+            handle.write(text)
+        os.replace(tmp, path)
+    except OSError:
+        pass
 
 
 def script_json(value: object) -> str:

@@ -14,7 +14,7 @@ from tracker.store.models import (
     Actor, AlignmentRow, FitPeriod, Move, Period, Track, TrackLink, TrackPosition,
 )
 
-from tracker.store._sql import _code_points, _now, _num, StoreBase
+from tracker.store._sql import _code_points, _driver_rows, _now, _num, StoreBase
 
 __all__ = ["TrackStore"]
 
@@ -145,12 +145,12 @@ class TrackStore(StoreBase):
 
         p_from, p_to = aliased(Period), aliased(Period)
         with self.engine.connect() as conn:
-            rows = conn.execute(
+            rows = _driver_rows(conn,
                 select(Actor.label, p_from.label, p_to.label, Move.from_track, Move.to_track, Move.confidence)
                 .join(Actor, Actor.id == Move.actor_id).join(p_from, p_from.id == Move.from_period_id)
                 .join(p_to, p_to.id == Move.to_period_id).where(Move.fit_id == fit_id)
                 .order_by(p_to.sort_key, _code_points(Actor.label))
-            ).all()
+            )
         return pd.DataFrame(rows, columns=["actor", "from_period", "to_period", "from_track", "to_track", "confidence"])
 
     def name_track(self, fit_id: int, track: int, name: str) -> None:

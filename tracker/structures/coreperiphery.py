@@ -25,12 +25,19 @@ References
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import scipy.sparse as sp
 
 from tracker.errors import UsageError
 
 __all__ = ["continuous_coreness", "discrete_core_periphery"]
+
+# Up to this many actors the random starts are uniform (each actor in the core
+# with probability 1/2); above, the degree start with about _FLIPS actors moved.
+_UNIFORM_STARTS = 1000
+_FLIPS = 100
 
 
 def continuous_coreness(matrix, *, max_iter: int = 500, tol: float = 1e-9) -> tuple[np.ndarray, float]:
@@ -128,7 +135,7 @@ def continuous_coreness(matrix, *, max_iter: int = 500, tol: float = 1e-9) -> tu
     return c, _product_correlation(adj, c)
 
 
-def discrete_core_periphery(matrix, *, seed: int = 0, restarts: int = 20) -> tuple[np.ndarray, float]:
+def discrete_core_periphery(matrix, *, seed: int = 0, restarts: int | None = None) -> tuple[np.ndarray, float]:
     r"""Discrete core-periphery model: the core that best matches the ideal pattern.
 
     The ideal pattern [1]_ is
@@ -156,18 +163,27 @@ def discrete_core_periphery(matrix, *, seed: int = 0, restarts: int = 20) -> tup
     actors and updated from :math:`v`'s ties after each move.  The search is
     steepest ascent by single moves (into or out of the core) until none improves
     :math:`r`, from ``restarts`` starts: the best core made of the highest-degree
-    actors (every threshold on total degree is scored), then random cores (each
-    actor in with probability 1/2, from ``numpy.random.default_rng(seed)``).  The
-    core keeps between 1 and ``n - 2`` actors, the sizes for which the pattern
-    varies.
+    actors (every threshold on total degree is scored), then random cores drawn
+    from ``numpy.random.default_rng(seed)``: up to 1,000 actors each actor is in
+    with probability 1/2; above, the degree start with each actor's membership
+    flipped with probability ``100 / n`` (about 100 changes), since an ascent
+    from a random half of a large network takes ``n / 2`` moves of ``O(n)``
+    each and ends far below the degree start.  As :math:`r` falls with
+    :math:`m_{PP}`, the best move out of the core is the core actor with the
+    fewest ties to the periphery and the best move in the periphery actor with
+    the most, so each step compares two candidates.  The core keeps between 1
+    and ``n - 2`` actors, the sizes for which the pattern varies.
 
     Parameters
     ----------
     matrix : scipy.sparse array or array_like, shape (n, n)
         Tie values of one relation, ``n >= 3``; nonzero off-diagonal cells are ties.
     seed : int
-    restarts : int
-        Number of starts (at least 1).
+    restarts : int, optional
+        Number of starts (at least 1).  Default: 20 up to 1,000 actors, then
+        ``10,000 / n`` (at least 2), which bounds the work of the starts (each
+        ascent takes up to a few thousand moves of ``O(n)`` time; measured
+        40 ms per start at 5,000 actors and 12,500 ties).
 
     Returns
     -------
@@ -186,6 +202,8 @@ def discrete_core_periphery(matrix, *, seed: int = 0, restarts: int = 20) -> tup
     ([True, True, False, False, False], 1.0)
     """
     adj = _binary(matrix, min_actors=3)
+    if restarts is None:
+        restarts = 20 if adj.shape[0] <= _UNIFORM_STARTS else max(2, 10 * _UNIFORM_STARTS // adj.shape[0])
     if int(restarts) < 1:
         raise UsageError(f"restarts must be at least 1, got {restarts}; use e.g. restarts=20")
     n = adj.shape[0]
@@ -206,9 +224,23 @@ def discrete_core_periphery(matrix, *, seed: int = 0, restarts: int = 20) -> tup
             r = num / np.sqrt(den)
         return np.where((size >= 1) & (size <= n - 2), r, -np.inf)
 
+    def corr_one(size, tied_pp):
+        # corr for one move, in plain floats (the same operations, so the same value)
+        if not 1 <= size <= n - 2:
+            return -math.inf
+        cells, ties = float(n_cells), float(n_ties)
+        ideal = cells - (n - size) * (n - size - 1.0)
+        den = (cells * ties - ties**2) * (cells * ideal - ideal**2)
+        if not den > 0:
+            return float(corr(size, tied_pp))
+        return (cells * (ties - tied_pp) - ties * ideal) / math.sqrt(den)
+
     rng = np.random.default_rng(seed)
-    starts = [_degree_start(adj, degree, corr)]
-    starts += [rng.random(n) < 0.5 for _ in range(int(restarts) - 1)]
+    first = _degree_start(adj, degree, corr)
+    flip = 0.5 if n <= _UNIFORM_STARTS else _FLIPS / n
+    starts = [first]
+    starts += [(rng.random(n) < 0.5) if n <= _UNIFORM_STARTS else first ^ (rng.random(n) < flip)
+               for _ in range(int(restarts) - 1)]
     best_mask, best_r = None, -np.inf
     for mask in starts:
         mask = _repair(mask, degree)
@@ -217,19 +249,33 @@ def discrete_core_periphery(matrix, *, seed: int = 0, restarts: int = 20) -> tup
         tied_pp = float(periphery @ (adj @ periphery))
         size = int(mask.sum())
         r = float(corr(size, tied_pp))
+        # Moving a core actor out scores best for the smallest count of ties to the
+        # periphery, moving one in for the largest (the score is monotone in the
+        # count): two candidates, the first actor among equals, as an argmax over
+        # all actors would choose.  The two keys are kept up to date move by move.
+        key_out = np.where(mask, to_periphery, np.inf)
+        key_in = np.where(mask, -np.inf, to_periphery)
         while True:
-            sign = np.where(mask, 1.0, -1.0)  # core -> periphery adds ties to m_PP
-            cand = corr(size - sign, tied_pp + sign * to_periphery)
-            v = int(np.argmax(cand))
-            if not cand[v] > r + 1e-12:
+            out_v = int(np.argmin(key_out))
+            in_v = int(np.argmax(key_in))
+            cand = (corr_one(size - 1, tied_pp + float(to_periphery[out_v])) if mask[out_v] else -math.inf,
+                    corr_one(size + 1, tied_pp - float(to_periphery[in_v])) if not mask[in_v] else -math.inf)
+            pick = 0 if cand[0] > cand[1] or (cand[0] == cand[1] and out_v < in_v) else 1
+            v = (out_v, in_v)[pick]
+            if not cand[pick] > r + 1e-12:
                 break
-            r = float(cand[v])
-            tied_pp += sign[v] * to_periphery[v]
-            size -= int(sign[v])
+            r = float(cand[pick])
+            sign = 1.0 if mask[v] else -1.0  # core -> periphery adds ties to m_PP
+            tied_pp += sign * to_periphery[v]
+            size -= int(sign)
             mask[v] = not mask[v]
             lo, hi = both.indptr[v], both.indptr[v + 1]
             # v joined the periphery (sign +1) or left it (sign -1)
-            to_periphery[both.indices[lo:hi]] += sign[v] * both.data[lo:hi]
+            nbrs = both.indices[lo:hi]
+            to_periphery[nbrs] += sign * both.data[lo:hi]
+            touched = np.append(nbrs, v)
+            key_out[touched] = np.where(mask[touched], to_periphery[touched], np.inf)
+            key_in[touched] = np.where(mask[touched], -np.inf, to_periphery[touched])
         if r > best_r:
             best_mask, best_r = mask, r
     return best_mask, float(best_r)
