@@ -161,8 +161,8 @@ def test_study_fit_returns_and_stores_the_note(tmp_path):
     pd.DataFrame(rows, columns=["a", "b", "year"]).to_csv(tmp_path / "e.csv", index=False)
     with Study(tmp_path / "s.db") as study:
         study.import_events(tmp_path / "e.csv", source="a", target="b", date="year")
-        result = study.fit(positions=4, smoothing=0, draws=0, options={"exact_limit": 20})
+        result = study.fit(method="structural", positions=4, smoothing=0, draws=0, options={"exact_limit": 20})
         assert len(result["notes"]) == 2 and all("randomized SVD" in note for note in result["notes"])
         stored = study.fit_periods()["diagnostics"]
         assert all(d["approximation"]["distinct"] <= 60 for d in stored)
-        assert study.fit(positions=4, smoothing=0, draws=0)["notes"] == []
+        assert study.fit(method="structural", positions=4, smoothing=0, draws=0)["notes"] == []

@@ -166,7 +166,9 @@ def test_fit_says_when_structural_positions_are_approximated(fitted, monkeypatch
 
     db, truth, _ = fitted
     monkeypatch.setattr(embedding, "EXACT_LIMIT", 5)
-    out = _run(db, "fit", "--positions", "3", "--smooth", "off", "--draws", "0")
+    # one worker: the limit is patched in this process only
+    out = _run(db, "fit", "--method", "structural", "--positions", "3", "--smooth", "off", "--draws", "0",
+               "--workers", "1")
     notes = [line for line in out.splitlines() if line.startswith("note: ")]
     assert len(notes) == 3 and all("distinct profiles" in line for line in notes)
     with Study(db, create=False) as study:

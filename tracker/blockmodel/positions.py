@@ -103,6 +103,8 @@ def _method_options() -> dict:
         "structural": {
             "linkage": Option("linkage", str, "--linkage", choices=hier + ("ward",)),
             "measure": Option("measure", str, "--measure", choices=("euclidean", "correlation")),
+            # above this many tied actors the embedding approximation runs (tracker.blockmodel.embedding)
+            "exact_limit": Option("exact_limit", int, "exact_limit", low=2),
         },
         "concor": {
             "max_iter": Option("max_iter", int, "--max-iter", low=1),
