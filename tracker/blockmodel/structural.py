@@ -30,6 +30,7 @@ from tracker.blockmodel.equivalence import (
     structural_correlations,
     structural_distances,
 )
+from tracker.blockmodel.evolution import check_prior, penalised, per_actor_scale
 from tracker.errors import UsageError
 
 __all__ = ["StructuralPositions"]
@@ -70,6 +71,13 @@ class StructuralPositions:
         mean adjusted Rand index 0.56 with Ward, 0.13 with average linkage.
         ``"ward"`` is valid only with Euclidean distances.
     measure : {"euclidean", "correlation"}, default "euclidean"
+    prior_labels : array of int, optional
+        Positions of the previous period (-1 unknown), for evolutionary fitting.
+    change_penalty : float, default 0
+        ``c`` of :mod:`tracker.blockmodel.evolution`: with ``prior_labels``, the
+        dissimilarity clustered (squared distance for Ward, else the distance or
+        ``1 - r``) of every pair apart before grows by ``c`` times the per-actor
+        objective of the unsmoothed partition.  0 changes nothing.
 
     Attributes
     ----------
@@ -95,11 +103,14 @@ class StructuralPositions:
     .. [2] Wasserman, S. & Faust, K. (1994). Social Network Analysis, sec. 9.3-9.4.
     """
 
-    def __init__(self, n_positions, *, seed=0, linkage=None, measure="euclidean"):
+    def __init__(self, n_positions, *, seed=0, linkage=None, measure="euclidean", prior_labels=None,
+                 change_penalty=0.0):
         self.n_positions = n_positions
         self.seed = seed
         self.linkage = linkage
         self.measure = measure
+        self.prior_labels = prior_labels
+        self.change_penalty = change_penalty
 
     def fit(self, matrices: Sequence, directed: Sequence[bool]) -> "StructuralPositions":
         """Cluster the actors of ``matrices`` (one sparse ``n x n`` matrix per relation)."""
@@ -122,16 +133,31 @@ class StructuralPositions:
                 dist = structural_correlations(matrices, directed)
                 np.subtract(1.0, dist, out=dist)
                 np.fill_diagonal(dist, 0.0)
-            condensed = squareform(dist, checks=False)
-            del dist
-            self.linkage_ = linkage(condensed, method=method)
-            labels = fcluster(self.linkage_, t=n_positions, criterion="maxclust")
-            if labels.max() < n_positions:
-                # Merges tied at the cut height make maxclust stop short (three equally
-                # distant groups asked for two positions give one).  Cut the tree at
-                # exactly the number asked for, but never split identical profiles.
-                distinct = int(fcluster(self.linkage_, t=1e-12, criterion="distance").max())
-                labels = cut_tree(self.linkage_, n_clusters=min(n_positions, distinct)).ravel()
+            prior = check_prior(self.prior_labels, n)
+            if prior is not None and self.change_penalty:
+                # Evolutionary fitting (tracker.blockmodel.evolution): Ward's objective
+                # is in squared distances, the other linkages' in the dissimilarity.
+                square = method == "ward"
+                delta = dist * dist if square else dist
+                scale = per_actor_scale(delta, self._cluster(dist.copy(), method, n_positions))
+                self.change_cost_ = float(self.change_penalty) * scale
+                delta = penalised(delta, prior, self.change_cost_)
+                dist = np.sqrt(delta) if square else delta
+            labels = self._cluster(dist, method, n_positions)
         self.labels_ = _first_appearance(labels)
         self.n_positions_ = int(self.labels_.max()) + 1 if n else 0
         return self
+
+    def _cluster(self, dist: np.ndarray, method: str, n_positions: int) -> np.ndarray:
+        """Hierarchical clustering of a dissimilarity matrix, cut into ``n_positions``."""
+        condensed = squareform(dist, checks=False)
+        del dist
+        self.linkage_ = linkage(condensed, method=method)
+        labels = fcluster(self.linkage_, t=n_positions, criterion="maxclust")
+        if labels.max() < n_positions:
+            # Merges tied at the cut height make maxclust stop short (three equally
+            # distant groups asked for two positions give one).  Cut the tree at
+            # exactly the number asked for, but never split identical profiles.
+            distinct = int(fcluster(self.linkage_, t=1e-12, criterion="distance").max())
+            labels = cut_tree(self.linkage_, n_clusters=min(n_positions, distinct)).ravel()
+        return labels

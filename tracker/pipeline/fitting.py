@@ -17,31 +17,55 @@ import pandas as pd
 
 from tracker.errors import UsageError
 
-__all__ = ["run_fit", "fit_joint", "frozen_prefix", "period_selection"]
+__all__ = ["run_fit", "fit_snapshots", "fit_joint", "frozen_prefix", "period_selection"]
 
 
 def run_fit(store, settings, labels: list[str], progress: Callable[[str], None] | None = None) -> list:
     """Per-period results (:class:`tracker.blockmodel.fitting.PeriodFit`) of ``settings`` on periods ``labels``."""
-    from tracker.blockmodel.fitting import fit_snapshot, smoothing_applies
-
-    results = []
     if settings.options.get("joint"):
-        results = fit_joint(list(store.snapshots(labels, settings.relations)), settings)
-        if progress is not None:
-            for period in labels:
-                progress(period)
-    elif smoothing_applies(settings) and len(store.period_labels()) > 1:
-        from tracker.longitudinal.smoothing import smoothed_fits
-
+        return fit_snapshots(list(store.snapshots(labels, settings.relations)), settings, progress=progress)
+    frozen_periods, frozen = [], []
+    if _smoothed(settings) and len(store.period_labels()) > 1:
         frozen_periods, frozen = frozen_prefix(store, settings, labels)
-        snaps = list(store.snapshots(frozen_periods + labels, settings.relations))
-        results = smoothed_fits(snaps, settings, frozen=frozen, progress=progress)
-    else:
-        for snap in store.snapshots(labels, settings.relations):
-            results.append(fit_snapshot(snap, settings))
-            if progress is not None:
+    snaps = list(store.snapshots(frozen_periods + labels, settings.relations))
+    return fit_snapshots(snaps, settings, frozen=frozen, progress=progress)
+
+
+def fit_snapshots(snapshots: list, settings, *, frozen: Sequence = (),
+                  progress: Callable[[str], None] | None = None) -> list:
+    """The fit procedure of ``settings`` on snapshots (no store): joint, evolutionary, or each period alone.
+
+    Used by :func:`run_fit` and by the calibration check, which refits
+    simulated studies with exactly the procedure of the stored fit.
+    ``frozen`` partitions keep the first snapshots as stored (evolutionary fits only).
+    """
+    from tracker.blockmodel.fitting import fit_snapshot
+    from tracker.longitudinal.smoothing import smoothed_fits, smoothing_penalty
+
+    if settings.options.get("joint"):
+        results = fit_joint(list(snapshots), settings)
+        if progress is not None:
+            for snap in snapshots:
                 progress(snap.period)
+        return results
+    if _smoothed(settings) and len(snapshots) > 1:
+        return smoothed_fits(snapshots, settings, frozen=frozen, progress=progress)
+    c = smoothing_penalty(settings.method, settings.smoothing)
+    results = []
+    for snap in snapshots:
+        result = fit_snapshot(snap, settings)
+        result.diagnostics["smoothing"] = {"method": settings.method, "penalty": c,
+                                           "note": "each period fitted alone"}
+        results.append(result)
+        if progress is not None:
+            progress(snap.period)
     return results
+
+
+def _smoothed(settings) -> bool:
+    from tracker.longitudinal.smoothing import smoothing_penalty
+
+    return not settings.options.get("joint") and smoothing_penalty(settings.method, settings.smoothing) > 0
 
 
 def fit_joint(snapshots: list, settings) -> list:
