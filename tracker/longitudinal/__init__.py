@@ -19,7 +19,7 @@ from tracker.longitudinal.align import (
     max_weight_matching,
     memberships,
 )
-from tracker.longitudinal.confidence import move_confidence, resample_matrices
+from tracker.longitudinal.confidence import MoveCalibrator, move_features, reliability, simulate_period
 from tracker.longitudinal.movement import mobility, moves, stayers, trajectories, transitions
 from tracker.longitudinal.smoothing import (
     DEFAULT_PENALTY,
@@ -37,8 +37,10 @@ __all__ = [
     "align",
     "max_weight_matching",
     "memberships",
-    "move_confidence",
-    "resample_matrices",
+    "MoveCalibrator",
+    "move_features",
+    "reliability",
+    "simulate_period",
     "mobility",
     "moves",
     "stayers",
