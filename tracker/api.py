@@ -424,6 +424,38 @@ class Study:
         return {"fit": fit_id, "tracks": self.tracks(fit_id), "moves": self.store.moves(fit_id),
                 "periods": len(order), "new_periods": len(order) - done}
 
+    def calibration(self, *, fit: int | None = None, studies: int = 20, seed: int | None = None) -> dict:
+        """Check move confidence on studies simulated from the fit; store and return the result.
+
+        Studies are drawn from the fitted model, refitted with the fit's own
+        procedure and aligned with the stored alignment's settings; their
+        moves, whose truth is known, are scored by a confidence map learned on
+        the other half of the studies (:func:`tracker.pipeline.calibration.calibration_check`).
+        Returns ``{"fit", "studies", "moves", "ece", "share_real_at_08", "bins", ...}``:
+        ``bins`` are 5 equal-width confidence bins with the number of moves,
+        their mean confidence and the share that is real.
+        """
+        from tracker.pipeline.calibration import calibration_check
+        from tracker.pipeline.tracking import aligned_inputs, stored_alignment
+
+        if studies < 2:
+            raise UsageError("--studies must be at least 2 (half of them check the other half)")
+        info = self.store.current_fit(fit)
+        fit_id = info["id"]
+        self._require_alignment(fit_id)
+        periods = aligned_inputs(self.store, fit_id)
+        alignment = stored_alignment(self.store, fit_id, [p.period for p in periods])
+        params = self.store.alignment_params(fit_id) or {}
+        result = calibration_check(self.store, info, periods, alignment, studies=studies,
+                                   seed=info["seed"] if seed is None else seed, align_params=params)
+        result["fit"] = fit_id
+        self.store.save_calibration(fit_id, result)
+        return result
+
+    def latest_calibration(self, fit: int | None = None) -> dict | None:
+        """The last stored calibration check of the current (or a chosen) fit, or None."""
+        return self.store.latest_calibration(self.store.current_fit(fit)["id"])
+
     def tracks(self, fit: int | None = None) -> pd.DataFrame:
         """Tracks of the current (or a chosen) fit: id, name, first and last period, parent, merges, size."""
         fit_id = self.store.current_fit(fit)["id"]

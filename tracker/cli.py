@@ -408,8 +408,8 @@ def _structures_frame(table: pd.DataFrame) -> pd.DataFrame:
 @click.option("--link-threshold", default=0.2, show_default=True, type=float, help="Least similarity to continue a track.")
 @click.option("--split-threshold", default=0.3, show_default=True, type=float, help="Least overlap for a split or merge.")
 @click.option("--max-gap", default=0, show_default=True, type=int, help="Periods a track may be missing and still continue.")
-@click.option("--draws", default=20, show_default=True, type=int, help="Bootstrap draws for move confidence (0 = none).")
-@click.option("--seed", type=int, help="Seed of the bootstrap (default: the fit's seed).")
+@click.option("--draws", default=20, show_default=True, type=int, help="Studies simulated from the fit to learn move confidence (0 = none).")
+@click.option("--seed", type=int, help="Seed of the simulated studies (default: the fit's seed).")
 @click.option("--rebuild", is_flag=True, help="Align every period again (track ids and names carried over by best match).")
 @click.option("--include-isolates", is_flag=True, help="Count moves into and out of the no-tie track as moves.")
 @click.pass_context
@@ -427,6 +427,22 @@ def align(ctx, fit_id, overlap_weight, link_threshold, split_threshold, max_gap,
         + (f" ({low} with confidence below 0.5)" if draws and len(moves) else "")
     )
     _emit(result["tracks"], "table", None, title="Tracks")
+
+
+@main.command()
+@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@click.option("--studies", default=20, show_default=True, type=int,
+              help="Studies simulated from the fit, refitted with its own settings.")
+@click.option("--seed", type=int, help="Seed of the simulated studies (default: the fit's seed).")
+@click.pass_context
+def calibration(ctx, fit_id, studies, seed):
+    """Check that move confidence is a probability: simulate studies from the fit, refit, compare."""
+    result = _study(ctx).calibration(fit=fit_id, studies=studies, seed=seed)
+    table = pd.DataFrame(result["bins"])
+    _emit(table, "table", None, title="Move confidence against the share of moves that are real")
+    ece = "n/a" if result["ece"] is None else f"{result['ece']:.3f}"
+    click.echo(f"fit {result['fit']}: {result['studies']} simulated studies, {result['moves']} moves; "
+               f"expected calibration error {ece} (0 = confidence matches how often moves are real)")
 
 
 @main.command()

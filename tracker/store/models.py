@@ -20,6 +20,7 @@ Tables (see DEVELOPERS.md for the full description):
 from __future__ import annotations
 
 from datetime import datetime
+from typing import Optional
 
 from sqlalchemy import (
     Boolean,
@@ -201,6 +202,20 @@ class AlignmentRow(Base):
     fit_id: Mapped[int] = mapped_column(ForeignKey("fits.id", ondelete="CASCADE"), primary_key=True)
     params: Mapped[str] = mapped_column(Text)
     aligned_at: Mapped[datetime] = mapped_column(DateTime)
+
+
+class Calibration(Base):
+    """A calibration check of a fit's move confidence (reliability bins and ECE as JSON)."""
+
+    __tablename__ = "calibrations"
+    __table_args__ = (Index("ix_calibrations_fit", "fit_id"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=True)
+    fit_id: Mapped[int] = mapped_column(ForeignKey("fits.id", ondelete="CASCADE"))
+    studies: Mapped[int] = mapped_column(Integer)
+    ece: Mapped[Optional[float]] = mapped_column(Float, nullable=True)
+    result: Mapped[str] = mapped_column(Text)
+    checked_at: Mapped[datetime] = mapped_column(DateTime)
 
 
 class Track(Base):

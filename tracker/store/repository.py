@@ -13,6 +13,7 @@ objects; no SQL escapes the store.
 from __future__ import annotations
 
 from tracker.store._sql import ImportReport
+from tracker.store.calibrations import CalibrationStore
 from tracker.store.events import EventStore
 from tracker.store.fits import FitStore
 from tracker.store.tracks import TrackStore
@@ -20,7 +21,7 @@ from tracker.store.tracks import TrackStore
 __all__ = ["Store", "ImportReport"]
 
 
-class Store(EventStore, FitStore, TrackStore):
+class Store(EventStore, FitStore, TrackStore, CalibrationStore):
     """A study database.
 
     Parameters
