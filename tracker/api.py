@@ -446,7 +446,7 @@ class Study:
         periods = aligned_inputs(self.store, fit_id)
         alignment = stored_alignment(self.store, fit_id, [p.period for p in periods])
         params = self.store.alignment_params(fit_id) or {}
-        result = calibration_check(self.store, info, periods, alignment, studies=studies,
+        result = calibration_check(self.store, info, periods, alignment, self.store.moves(fit_id), studies=studies,
                                    seed=info["seed"] if seed is None else seed, align_params=params)
         result["fit"] = fit_id
         self.store.save_calibration(fit_id, result)

@@ -11,12 +11,15 @@ and never write.
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 import pandas as pd
 
 from tracker.execution import map_tasks, task_seeds
+from tracker.longitudinal.confidence import MoveCalibrator
 
-__all__ = ["DEFAULT_ALIGN", "simulation_template", "simulated_moves", "calibrated_confidence", "calibration_check"]
+__all__ = ["DEFAULT_ALIGN", "simulation_template", "planted", "held_out_density", "simulated_moves", "calibrated_confidence", "calibration_check"]
 
 #: Alignment settings used when a fit has none stored.
 DEFAULT_ALIGN = {"weight_overlap": 0.5, "link_threshold": 0.2, "split_threshold": 0.3, "max_gap": 0,
@@ -24,32 +27,77 @@ DEFAULT_ALIGN = {"weight_overlap": 0.5, "link_threshold": 0.2, "split_threshold"
 
 
 def simulation_template(store, info: dict, periods: list, alignment) -> dict:
-    """What a simulated study is drawn from: per period actors, fitted labels, block densities; the truth."""
+    """What simulated studies are drawn from: the fit's settings, and per period its actors,
+    relations, observed matrices, fitted labels and position -> track map."""
     from tracker.blockmodel.fitting import FitSettings
 
     params = info["params"]
     settings = FitSettings(**{**params, "relations": tuple(params["relations"]) if params.get("relations") else None,
                               "draws": 0})
     snaps = {s.period: s for s in store.snapshots([p.period for p in periods], settings.relations)}
-    template, truth = [], []
-    order = [p.period for p in periods]
-    for t, pp in enumerate(periods):
+    template = []
+    for pp in periods:
         snap = snaps[pp.period]
         if tuple(snap.actors) != tuple(pp.actors):
             raise ValueError(f"period {pp.period}: the fitted actors differ from the stored ties; refit first")
-        others = [snaps[order[u]] for u in (t - 1, t + 1) if 0 <= u < len(order)]
-        density = held_out_density(pp, others, len(snap.relations))
-        if pp.isolates is not None:
-            density[:, pp.isolates, :] = 0.0
-            density[:, :, pp.isolates] = 0.0
-        template.append((pp.period, tuple(snap.actors), tuple(snap.relations), np.asarray(pp.labels), density))
-        track = alignment.assignment[pp.period][np.asarray(pp.labels)]
-        truth.append(pd.DataFrame({"period": pp.period, "actor": list(pp.actors), "track": track}))
-    return {"settings": settings, "template": template, "truth": pd.concat(truth, ignore_index=True),
-            "observed": snaps}
+        template.append(_Period(pp.period, tuple(snap.actors), tuple(snap.relations), tuple(snap.matrices),
+                                np.asarray(pp.labels), pp.n_positions, pp.isolates,
+                                np.asarray(alignment.assignment[pp.period])))
+    return {"settings": settings, "template": template, "observed": snaps}
 
 
-def held_out_density(pp, others: list, n_relations: int) -> np.ndarray:
+@dataclasses.dataclass(frozen=True, eq=False)
+class _Period:
+    period: str
+    actors: tuple
+    relations: tuple
+    matrices: tuple
+    labels: np.ndarray
+    n_positions: int
+    isolates: int | None
+    assignment: np.ndarray  # position -> track
+
+
+def planted(template: list, moves: pd.DataFrame, keep: np.ndarray) -> tuple[list, pd.DataFrame]:
+    """Planted labels per period and planted tracks: the fitted ones, with the moves not kept undone.
+
+    An actor whose move is not kept stays in the track it left (in the
+    position of that track in each later period where the track has one) until
+    its next kept move.  Changes into or out of the tieless position are kept
+    as fitted.  Returns (labels per period, truth table ``period, actor, track``).
+    """
+    labels = [p.labels.copy() for p in template]
+    tracks = [p.assignment[p.labels] for p in template]
+    undone = {(a, str(t)) for a, t, k in zip(moves["actor"], moves["to_period"], keep) if not k}
+    if undone:
+        index = [{a: i for i, a in enumerate(p.actors)} for p in template]
+        position_of = [{int(tr): k for k, tr in enumerate(p.assignment) if tr >= 0} for p in template]
+        for actor in {a for a, _ in undone}:
+            current, previous = None, None
+            for t, p in enumerate(template):
+                i = index[t].get(actor)
+                if i is None:
+                    continue
+                fitted = int(tracks[t][i])
+                if current is None:
+                    current = fitted
+                elif (actor, p.period) in undone or (fitted == previous and fitted != 0):
+                    k = position_of[t].get(current)
+                    if k is not None and fitted != 0:
+                        labels[t][i] = k
+                        tracks[t][i] = current
+                    else:
+                        current = fitted
+                else:
+                    current = fitted
+                previous = fitted
+    truth = pd.concat([pd.DataFrame({"period": p.period, "actor": list(p.actors), "track": tr})
+                       for p, tr in zip(template, tracks)], ignore_index=True)
+    return labels, truth
+
+
+def held_out_density(labels: np.ndarray, actors: tuple, n_pos: int, others: list, n_relations: int,
+                     own: tuple = ()) -> np.ndarray:
     """Block densities of period ``pp``'s positions measured on the ties of other periods.
 
     The densities of a partition measured on the ties it was fitted to are
@@ -62,28 +110,31 @@ def held_out_density(pp, others: list, n_relations: int) -> np.ndarray:
     """
     import scipy.sparse as sp
 
-    n_pos = pp.n_positions
     if not others:
-        return np.array(pp.density, dtype=np.float64) if pp.density is not None else np.zeros((n_relations, n_pos, n_pos))
-    index = {a: i for i, a in enumerate(pp.actors)}
+        others = [(actors, own)]
+    index = {a: i for i, a in enumerate(actors)}
     ties = np.zeros((n_relations, n_pos, n_pos))
     possible = np.zeros((n_relations, n_pos, n_pos))
-    for snap in others:
-        where = np.array([index.get(a, -1) for a in snap.actors])
+    for other_actors, other_matrices in others:
+        where = np.array([index.get(a, -1) for a in other_actors])
         keep = np.flatnonzero(where >= 0)
-        lab = np.asarray(pp.labels)[where[keep]]
-        z = sp.csr_array((np.ones(keep.size), (keep, lab)), shape=(len(snap.actors), n_pos))
+        lab = np.asarray(labels)[where[keep]]
+        z = sp.csr_array((np.ones(keep.size), (keep, lab)), shape=(len(other_actors), n_pos))
         size = np.bincount(lab, minlength=n_pos).astype(np.float64)
         pairs = np.outer(size, size) - np.diag(size)
-        for r, mat in enumerate(snap.matrices[:n_relations]):
+        for r, mat in enumerate(other_matrices[:n_relations]):
             binary = sp.csr_array((sp.csr_array(mat) > 0).astype(np.float64))
             ties[r] += np.asarray((z.T @ (binary @ z)).toarray())
             possible[r] += pairs
     return np.divide(ties, possible, out=np.zeros_like(ties), where=possible > 0)
 
 
-def _one_study(template, settings, align_params, truth, seed):
-    """Draw one study from ``template``, refit it with ``settings``, return (features, real) of its moves."""
+def _one_study(template, settings, align_params, moves, keep_probability, seed):
+    """Draw one study from ``template``, refit it with ``settings``, return (features, real) of its moves.
+
+    Each fitted move is planted with probability ``keep_probability`` (drawn
+    here from ``seed``), the others undone (:func:`planted`).
+    """
     from tracker.longitudinal.align import PeriodPositions, align, memberships
     from tracker.longitudinal.confidence import move_features, simulate_period, true_moves_mask
     from tracker.longitudinal.movement import moves as find_moves
@@ -92,10 +143,17 @@ def _one_study(template, settings, align_params, truth, seed):
     from tracker.snapshot import Snapshot
 
     rng = np.random.default_rng(seed)
+    keep = rng.random(len(moves)) < np.asarray(keep_probability, dtype=np.float64)
+    labels, truth = planted(template, moves, keep)
     snaps = []
-    for period, actors, relations, labels, density in template:
-        mats = simulate_period(labels, density, [r.directed for r in relations], rng)
-        snaps.append(Snapshot(period, actors, relations, tuple(mats)))
+    for t, p in enumerate(template):
+        others = [(template[u].actors, template[u].matrices) for u in (t - 1, t + 1) if 0 <= u < len(template)]
+        density = held_out_density(labels[t], p.actors, p.n_positions, others, len(p.relations), p.matrices)
+        if p.isolates is not None:
+            density[:, p.isolates, :] = 0.0
+            density[:, :, p.isolates] = 0.0
+        mats = simulate_period(labels[t], density, [r.directed for r in p.relations], rng)
+        snaps.append(Snapshot(p.period, p.actors, p.relations, tuple(mats)))
     fits = fit_snapshots(snaps, settings)
     pps = [PeriodPositions(f.period, f.actors, f.partition.labels, f.partition.n_positions, f.partition.isolates,
                            f.stats.density) for f in fits]
@@ -113,49 +171,72 @@ def _one_study(template, settings, align_params, truth, seed):
     return feats, true_moves_mask(found, truth)
 
 
-def simulated_moves(store, info: dict, periods: list, alignment, align_params: dict, studies: int, seed: int):
-    """Features and truth of the moves of ``studies`` simulated studies: a list of (features, real)."""
+def simulated_moves(sim: dict, moves: pd.DataFrame, keep_probability, align_params: dict, studies: int,
+                    seed: int) -> list:
+    """Features and truth of the moves of ``studies`` studies simulated from ``sim``: a list of (features, real)."""
     if studies < 1:
         raise ValueError("studies must be at least 1")
-    sim = simulation_template(store, info, periods, alignment)
-    params = {**DEFAULT_ALIGN, **{k: v for k, v in align_params.items() if k in DEFAULT_ALIGN}}
-    tasks = [(sim["template"], sim["settings"], params, sim["truth"], s) for s in task_seeds(seed, studies)]
+    params = {**DEFAULT_ALIGN, **{k: v for k, v in (align_params or {}).items() if k in DEFAULT_ALIGN}}
+    moves = moves[["actor", "from_period", "to_period"]].reset_index(drop=True)
+    keep = np.broadcast_to(np.asarray(keep_probability, dtype=np.float64), (len(moves),)).copy()
+    tasks = [(sim["template"], sim["settings"], params, moves, keep, s) for s in task_seeds(seed, studies)]
     return map_tasks(_one_study, tasks, label="simulated studies")
 
 
 def calibrated_confidence(store, info: dict, periods: list, alignment, moves: pd.DataFrame, studies: int,
                           seed: int, align_params: dict | None = None) -> np.ndarray:
-    """Probability that each observed move is real (:mod:`tracker.longitudinal.confidence`)."""
-    from tracker.longitudinal.align import memberships
-    from tracker.longitudinal.confidence import MoveCalibrator, move_features
+    """Probability that each observed move is real (:mod:`tracker.longitudinal.confidence`).
 
+    Two rounds.  The first plants every fitted move in the simulated studies
+    and learns a first map; but a fit of noisy data reports many false moves,
+    and planting them all makes simulated worlds with far more real moves
+    than the observed one has, so the first map is too sure.  The second round
+    plants each fitted move with the probability the first map gives it (so
+    the simulated worlds hold as many real moves as the first round expects)
+    and learns the map that is used -- one step of a fixed-point (EM-like)
+    iteration on the share of real moves.  Each round uses ``studies``
+    simulated studies.
+    """
     if len(moves) == 0:
         return np.zeros(0)
-    runs = simulated_moves(store, info, periods, alignment, align_params or {}, studies, seed)
-    model = MoveCalibrator().fit(np.vstack([f for f, _ in runs]), np.concatenate([r for _, r in runs]))
-    snaps = {s.period: s for s in store.snapshots([p.period for p in periods],
-                                                  info["params"].get("relations") or None)}
-    members = memberships(periods, alignment)
-    order = [p.period for p in periods]
-    feats = move_features(moves, members, order, {p: s.matrices for p, s in snaps.items()},
-                          {p: s.actors for p, s in snaps.items()})
-    return model.predict(feats)
+    sim = simulation_template(store, info, periods, alignment)
+    feats = _observed_features(sim, periods, alignment, moves)
+    seeds = task_seeds(seed, 2)
+    keep = np.ones(len(moves))
+    for round_seed in seeds:
+        runs = simulated_moves(sim, moves, keep, align_params, studies, round_seed)
+        model = MoveCalibrator().fit(np.vstack([f for f, _ in runs]), np.concatenate([r for _, r in runs]))
+        keep = model.predict(feats)
+    return keep
 
 
-def calibration_check(store, info: dict, periods: list, alignment, *, studies: int = 20, seed: int = 0,
-                      align_params: dict | None = None, bins: int = 5) -> dict:
+def _observed_features(sim, periods, alignment, moves) -> np.ndarray:
+    from tracker.longitudinal.align import memberships
+    from tracker.longitudinal.confidence import move_features
+
+    snaps = sim["observed"]
+    return move_features(moves, memberships(periods, alignment), [p.period for p in periods],
+                         {p: s.matrices for p, s in snaps.items()}, {p: s.actors for p, s in snaps.items()})
+
+
+def calibration_check(store, info: dict, periods: list, alignment, moves: pd.DataFrame, *, studies: int = 20,
+                      seed: int = 0, align_params: dict | None = None, bins: int = 5) -> dict:
     """Reliability of move confidence on studies simulated from this fit (two-fold cross-fitting).
 
+    The simulated studies plant each stored move with its stored confidence
+    (1 where none was computed): worlds like the one the confidences describe.
     The simulated studies are split in two halves by order; each half's moves
     are scored by a map learned on the other half, so no move is scored by a
     map that saw it.  Returns ``{"studies", "moves", "real", "ece",
     "share_real_at_08", "moves_at_08", "bins": [...]}``.
     """
-    from tracker.longitudinal.confidence import MoveCalibrator, reliability
+    from tracker.longitudinal.confidence import reliability
 
     if studies < 2:
         raise ValueError("the calibration check needs at least 2 simulated studies")
-    runs = simulated_moves(store, info, periods, alignment, align_params or {}, studies, seed)
+    sim = simulation_template(store, info, periods, alignment)
+    keep = moves["confidence"].fillna(1.0).to_numpy(dtype=np.float64) if len(moves) else np.zeros(0)
+    runs = simulated_moves(sim, moves, keep, align_params, studies, seed)
     fold = np.arange(len(runs)) % 2
     conf, real = [], []
     for f in (0, 1):
