@@ -401,10 +401,9 @@ class Study:
 
         Periods aligned before keep their tracks exactly (new periods are
         aligned after them) unless ``rebuild``; track names are kept by track
-        id.  Each move's ``confidence`` is the share of ``draws`` bootstrap
-        replicates (each period's events resampled with replacement and both
-        periods refitted with the fit's own settings) in which the move is
-        reproduced (:func:`tracker.longitudinal.confidence.move_confidence`);
+        id.  Each move's ``confidence`` is the probability that it is real,
+        learned on ``draws`` studies simulated from the fit and refitted with
+        its own procedure (:func:`tracker.pipeline.calibration.calibrated_confidence`);
         ``draws=0`` skips it.  Moves into or out of the no-tie track (0) are
         left out unless ``include_isolates``: in sparse data an actor with no
         event in one year has not changed role.
@@ -612,6 +611,10 @@ class Study:
             "relations": [f"{r.name} ({'directed' if r.directed else 'undirected'})" for r in relations],
             "counts": self.store.counts(),
         }
+        check = self.store.latest_calibration(fit_id)
+        if check:
+            tables["calibration"] = pd.DataFrame(check["bins"])
+            meta["calibration"] = check
         alignment = self.store.alignment_params(fit_id)
         if alignment:
             meta["alignment"] = ", ".join(f"{k}={v}" for k, v in alignment.items())

@@ -28,6 +28,9 @@ def test_calibration_command_stores_reliability_bins_and_ece(tmp_path):
     _run(db, "align", "--draws", "2")
     out = _run(db, "calibration", "--studies", "4", "--seed", "3")
     assert "expected calibration error" in out
+    report = tmp_path / "report.html"
+    _run(db, "report", "-o", str(report), "--structure-draws", "0")
+    assert "chart-calibration" in report.read_text(encoding="utf-8")
     with Study(db) as study:
         stored = study.latest_calibration()
     assert stored["studies"] == 4
