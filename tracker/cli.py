@@ -276,7 +276,7 @@ def _split(values) -> list[str] | None:
 @click.option("--model", "sbm_model", type=click.Choice(["poisson", "bernoulli"]), help="sbm: Poisson for event counts (default) or Bernoulli for binary ties.")
 @click.option("--joint", is_flag=True, help="sbm: one dynamic model over all periods (positions mean the same in every period).")
 @click.option("--smooth", "smoothing", default="auto", show_default=True,
-              help="Penalty per change of position, added to the method's own objective, in units of its per-actor objective: auto (1 where defined), off (each period alone) or a number.")
+              help="Penalty per change of position, added to the method's own objective, in units of its per-actor objective: auto (0.5 where defined), off (each period alone) or a number.")
 @click.pass_context
 def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations, draws, k_range, linkage, measure,
         restarts, exact, degree_corrected, sbm_model, joint, smoothing):

@@ -12,7 +12,7 @@ from tracker.blockmodel.fitting import FitSettings, fit_snapshot
 from tracker.blockmodel.positions import find_positions
 from tracker.errors import UsageError
 from tracker.longitudinal import (
-    ISOLATES_TRACK, PeriodPositions, align, evolutionary_partitions, memberships, moves, smoothed_fits,
+    DEFAULT_PENALTY, ISOLATES_TRACK, PeriodPositions, align, evolutionary_partitions, memberships, moves, smoothed_fits,
     smoothing_penalty,
 )
 from tracker.snapshot import Relation, Snapshot
@@ -54,7 +54,7 @@ def test_methods_without_an_objective_refuse_a_penalty_and_auto_records_none():
             smoothing_penalty(method, 1.0)
         assert smoothing_penalty(method, "auto") == 0.0
         assert smoothing_penalty(method, 0.0) == 0.0
-    assert smoothing_penalty("structural", "auto") == 1.0
+    assert smoothing_penalty("structural", "auto") == DEFAULT_PENALTY == 0.5
     with pytest.raises(UsageError):
         smoothing_penalty("structural", -1.0)
 
@@ -90,7 +90,7 @@ def _false_moves(snaps, parts, true_moves):
 def test_smoothing_removes_most_false_moves_on_noisy_planted_data(method, seed):
     # Source: planted dynamic blockmodel (tests/helpers/planted.py; 90 actors, 3 positions,
     # 9 planted moves) as ground truth.  Measured: unsmoothed fits leave 130-180 false moves
-    # per study, the default penalty (c = 1) 0-55.  Bound: at most half as many.
+    # per study, c = 1 0-55.  Bound: at most half as many.
     snaps, _, true_moves = planted_dynamic(90, 3, 6, 0.4, 0.04, 9, seed=seed)
     mats, acts, directed = [s[2] for s in snaps], [s[1] for s in snaps], snaps[0][3]
     alone = evolutionary_partitions(mats, directed, acts, 3, method=method, change_penalty=0.0)

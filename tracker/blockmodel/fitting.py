@@ -56,7 +56,7 @@ class FitSettings:
         (:mod:`tracker.longitudinal.smoothing`): the method's own objective plus
         ``c`` times its per-actor objective scale for each change; 0 fits each
         period alone with exactly the method's own call.  ``"auto"`` (the
-        default) is ``c = 1`` for the methods that define a penalty
+        default) is ``c = 0.5`` for the methods that define a penalty
         (structural, CONCOR, optimize) and 0 for the others; a number above 0
         for another method is refused.  Joint SBM fits link periods themselves.
     """

@@ -40,10 +40,15 @@ absolute :math:`\lambda_t` is ``c`` times the period's per-actor objective
 scale, computed from the method's unsmoothed partition of that period
 (:func:`tracker.blockmodel.evolution.per_actor_scale` for structural: the
 objective divided by the number of actors; the mean absolute correlation
-for CONCOR; inconsistencies per tied actor for optimize).  ``c = 1`` (the
-default, :data:`DEFAULT_PENALTY`) means one change costs as much as an
-average actor contributes to the objective, so an actor changes position
-only when staying would make it fit worse than the average actor fits.
+for CONCOR; inconsistencies per tied actor for optimize).  ``c = 1`` means
+one change costs as much as an average actor contributes to the objective,
+so an actor changes position only when staying would make it fit worse than
+the average actor fits.  The default, :data:`DEFAULT_PENALTY` ``= 0.5``, is
+half that: on planted data (tests/helpers/planted.py, 90 actors, 3 cohesive
+positions, densities 0.5/0.05, 9 movers, seeds 0-2) structural equivalence
+found 23 of 27 planted moves among 54 reported with ``c = 0``, 23 among 27
+with ``c = 0.5`` and 11 among 18 with ``c = 1``; with a dense core
+(0.4/0.04) ``c = 0`` reported 137-174 moves per study, ``c = 0.5`` 4-10.
 ``c = 0`` calls the method exactly as without smoothing.
 
 References
@@ -67,7 +72,7 @@ from tracker.errors import UsageError
 __all__ = ["DEFAULT_PENALTY", "OBJECTIVES", "smoothing_penalty", "evolutionary_partitions", "smoothed_fits"]
 
 #: Default relative change penalty ``c`` (module docstring).
-DEFAULT_PENALTY = 1.0
+DEFAULT_PENALTY = 0.5
 
 #: Methods that can be smoothed, and the objective the penalty is added to.
 OBJECTIVES = {
