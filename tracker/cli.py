@@ -479,7 +479,8 @@ def moves(ctx, fmt, output, fit_id, min_confidence):
         frame = frame.assign(note=["low confidence" if c < 0.5 else "" for c in frame["confidence"].fillna(1.0)])
     _emit(frame, fmt, output, title="Moves")
     if fmt == "table" and output is None:
-        click.echo("confidence: share of bootstrap refits that reproduce the move; a move below 0.5 may be noise.")
+        click.echo("confidence: probability that the move is real, learned on studies simulated from the fit; "
+                   "roletrail calibration checks it.")
 
 
 @main.command()
@@ -559,7 +560,7 @@ def chart(ctx, name, output, fit_id, actor):
 @click.option("--out", default="roletrail-demo", show_default=True, type=click.Path(file_okay=False),
               help="Folder for the demo study and its report.")
 @click.option("--list", "list_only", is_flag=True, help="List the bundled scenarios and stop.")
-@click.option("--draws", default=10, show_default=True, type=int, help="Bootstrap draws for move confidence.")
+@click.option("--draws", default=10, show_default=True, type=int, help="Studies simulated from the fit to learn move confidence.")
 def demo(scenario, out, list_only, draws):
     """Run a bundled invented scenario end to end: import, fit, align, report."""
     from tracker.demo import DEFAULT_SCENARIO, list_scenarios, run_demo

@@ -170,7 +170,7 @@ class Membership(Base):
     actor_id: Mapped[int] = mapped_column(ForeignKey("actors.id", ondelete="CASCADE"), primary_key=True)
     position: Mapped[int] = mapped_column(Integer)  # 1-based
     isolate: Mapped[bool] = mapped_column(Boolean)
-    confidence: Mapped[float | None] = mapped_column(Float)  # posterior or bootstrap share, when known
+    confidence: Mapped[float | None] = mapped_column(Float)  # posterior probability of the position, when known
 
 
 class Block(Base):
