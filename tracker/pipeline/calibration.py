@@ -19,7 +19,8 @@ import pandas as pd
 from tracker.execution import map_tasks, task_seeds
 from tracker.longitudinal.confidence import MoveCalibrator
 
-__all__ = ["DEFAULT_ALIGN", "simulation_template", "planted", "held_out_density", "simulated_moves", "calibrated_confidence", "calibration_check"]
+__all__ = ["DEFAULT_ALIGN", "simulation_template", "planted", "held_out_density", "simulated_moves", "real_share",
+           "calibrated_confidence", "calibration_check"]
 
 #: Alignment settings used when a fit has none stored.
 DEFAULT_ALIGN = {"weight_overlap": 0.5, "link_threshold": 0.2, "split_threshold": 0.3, "max_gap": 0,
@@ -187,27 +188,46 @@ def calibrated_confidence(store, info: dict, periods: list, alignment, moves: pd
                           seed: int, align_params: dict | None = None) -> np.ndarray:
     """Probability that each observed move is real (:mod:`tracker.longitudinal.confidence`).
 
-    Two rounds.  The first plants every fitted move in the simulated studies
-    and learns a first map; but a fit of noisy data reports many false moves,
-    and planting them all makes simulated worlds with far more real moves
-    than the observed one has, so the first map is too sure.  The second round
-    plants each fitted move with the probability the first map gives it (so
-    the simulated worlds hold as many real moves as the first round expects)
-    and learns the map that is used -- one step of a fixed-point (EM-like)
-    iteration on the share of real moves.  Each round uses ``studies``
-    simulated studies.
+    Two rounds of ``studies`` simulated studies each.  The first plants every
+    fitted move.  A fit of noisy data reports many false moves, so planting
+    them all makes worlds with far more real moves than the observed one, and
+    a map learned there is too sure.  The first round also measures how many
+    false moves a simulated study reports (:math:`F`, the noise floor of the
+    procedure) and which share :math:`d` of the planted moves it finds.  Of the
+    :math:`M` observed moves about :math:`\max(0, M - F)` are then real
+    (the simulation estimate of false discoveries; cf. Storey & Tibshirani
+    2003), i.e. a share :math:`\pi = \max(0, 1 - F / (d M))` of what the
+    fit plants once found at rate :math:`d`.  The second round plants each
+    fitted move with its first-round probability rescaled to mean
+    :math:`\pi`, and learns the map that is used.
     """
     if len(moves) == 0:
         return np.zeros(0)
     sim = simulation_template(store, info, periods, alignment)
     feats = _observed_features(sim, periods, alignment, moves)
-    seeds = task_seeds(seed, 2)
-    keep = np.ones(len(moves))
-    for round_seed in seeds:
-        runs = simulated_moves(sim, moves, keep, align_params, studies, round_seed)
-        model = MoveCalibrator().fit(np.vstack([f for f, _ in runs]), np.concatenate([r for _, r in runs]))
-        keep = model.predict(feats)
-    return keep
+    first, second = task_seeds(seed, 2)
+    runs = simulated_moves(sim, moves, np.ones(len(moves)), align_params, studies, first)
+    model = MoveCalibrator().fit(np.vstack([f for f, _ in runs]), np.concatenate([r for _, r in runs]))
+    conf = model.predict(feats)
+    keep = np.clip(conf * real_share(runs, len(moves)) / max(float(conf.mean()), 1e-12), 0.0, 1.0)
+    runs = simulated_moves(sim, moves, keep, align_params, studies, second)
+    model = MoveCalibrator().fit(np.vstack([f for f, _ in runs]), np.concatenate([r for _, r in runs]))
+    return model.predict(feats)
+
+
+def real_share(runs: list, planted_moves: int) -> float:
+    """:math:`\pi = \max(0, 1 - F / (d M))` from studies where all ``M`` fitted moves were planted.
+
+    ``F`` is the mean number of false moves a simulated study reports and
+    ``d`` the mean share of planted moves it finds.
+    """
+    if planted_moves == 0 or not runs:
+        return 0.0
+    false = float(np.mean([(~np.asarray(r, dtype=bool)).sum() for _, r in runs]))
+    found = float(np.mean([np.asarray(r, dtype=bool).sum() for _, r in runs])) / planted_moves
+    if found <= 0:
+        return 0.0
+    return float(np.clip(1.0 - false / (found * planted_moves), 0.0, 1.0))
 
 
 def _observed_features(sim, periods, alignment, moves) -> np.ndarray:
