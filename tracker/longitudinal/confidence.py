@@ -244,7 +244,8 @@ class MoveCalibrator:
 
     ``fit(X, y)`` learns from simulated moves (``y`` real or not); with fewer
     than 3 real or 3 false moves there is nothing to separate, and every move
-    gets the share of real moves (with one pseudo-move of each kind).
+    gets the share of real moves (with one pseudo-move of each kind); without
+    any simulated move, NaN (unknown).
     """
 
     def __init__(self) -> None:
@@ -258,7 +259,7 @@ class MoveCalibrator:
         from sklearn.preprocessing import StandardScaler
 
         real = np.asarray(real, dtype=bool)
-        self.rate_ = (real.sum() + 0.5) / (real.size + 1.0)
+        self.rate_ = (real.sum() + 0.5) / (real.size + 1.0) if real.size else float("nan")
         self.model_ = None
         if min(real.sum(), (~real).sum()) >= 3:
             base = make_pipeline(StandardScaler(), LogisticRegression(max_iter=1000))

@@ -186,7 +186,7 @@ def simulated_moves(sim: dict, moves: pd.DataFrame, keep_probability, align_para
 
 def calibrated_confidence(store, info: dict, periods: list, alignment, moves: pd.DataFrame, studies: int,
                           seed: int, align_params: dict | None = None) -> np.ndarray:
-    """Probability that each observed move is real (:mod:`tracker.longitudinal.confidence`).
+    r"""Probability that each observed move is real (:mod:`tracker.longitudinal.confidence`).
 
     Two rounds of ``studies`` simulated studies each.  The first plants every
     fitted move.  A fit of noisy data reports many false moves, so planting
@@ -196,10 +196,13 @@ def calibrated_confidence(store, info: dict, periods: list, alignment, moves: pd
     procedure) and which share :math:`d` of the planted moves it finds.  Of the
     :math:`M` observed moves about :math:`\max(0, M - F)` are then real
     (the simulation estimate of false discoveries; cf. Storey & Tibshirani
-    2003), i.e. a share :math:`\pi = \max(0, 1 - F / (d M))` of what the
-    fit plants once found at rate :math:`d`.  The second round plants each
+    2003); a world that plants a share :math:`\pi` of the fitted moves
+    reports about :math:`d \pi M + F` moves, which matches the observed
+    :math:`M` at :math:`\pi = (M - F) / (d M)` (clipped to [0, 1]).  The second round plants each
     fitted move with its first-round probability rescaled to mean
-    :math:`\pi`, and learns the map that is used.
+    :math:`\pi`, and learns the map that is used.  When the simulated studies
+    report no move at all there is nothing to learn from, and every
+    confidence is NaN (unknown) rather than a guess.
     """
     if len(moves) == 0:
         return np.zeros(0)
@@ -209,6 +212,8 @@ def calibrated_confidence(store, info: dict, periods: list, alignment, moves: pd
     runs = simulated_moves(sim, moves, np.ones(len(moves)), align_params, studies, first)
     model = MoveCalibrator().fit(np.vstack([f for f, _ in runs]), np.concatenate([r for _, r in runs]))
     conf = model.predict(feats)
+    if np.isnan(conf).all():
+        return conf
     keep = np.clip(conf * real_share(runs, len(moves)) / max(float(conf.mean()), 1e-12), 0.0, 1.0)
     runs = simulated_moves(sim, moves, keep, align_params, studies, second)
     model = MoveCalibrator().fit(np.vstack([f for f, _ in runs]), np.concatenate([r for _, r in runs]))
@@ -216,7 +221,7 @@ def calibrated_confidence(store, info: dict, periods: list, alignment, moves: pd
 
 
 def real_share(runs: list, planted_moves: int) -> float:
-    """:math:`\pi = \max(0, 1 - F / (d M))` from studies where all ``M`` fitted moves were planted.
+    r""":math:`\pi = (M - F) / (d M)`, clipped to [0, 1], from studies where all ``M`` fitted moves were planted.
 
     ``F`` is the mean number of false moves a simulated study reports and
     ``d`` the mean share of planted moves it finds.
@@ -227,7 +232,7 @@ def real_share(runs: list, planted_moves: int) -> float:
     found = float(np.mean([np.asarray(r, dtype=bool).sum() for _, r in runs])) / planted_moves
     if found <= 0:
         return 0.0
-    return float(np.clip(1.0 - false / (found * planted_moves), 0.0, 1.0))
+    return float(np.clip((planted_moves - false) / (found * planted_moves), 0.0, 1.0))
 
 
 def _observed_features(sim, periods, alignment, moves) -> np.ndarray:
@@ -268,6 +273,8 @@ def calibration_check(store, info: dict, periods: list, alignment, moves: pd.Dat
             real.append(y)
     conf = np.concatenate(conf) if conf else np.zeros(0)
     real = np.concatenate(real) if real else np.zeros(0, dtype=bool)
+    known = ~np.isnan(conf)  # NaN: no simulated move to learn from
+    conf, real = conf[known], real[known]
     table, ece = reliability(conf, real, bins)
     high = conf >= 0.8
     return {
