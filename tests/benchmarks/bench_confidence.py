@@ -7,7 +7,8 @@ Settings (tests/helpers/planted.py): ``weak`` is sparse with weak contrast (4 po
 about 2% density, 15 planted single moves, 160 actors, 6 periods); ``strong`` is 3
 cohesive positions at densities 0.5/0.05 with 9 planted moves (90 actors, 6 periods).
 Prints, per method and setting over all seeds: moves reported, real moves among them,
-ECE (5 equal-width bins), moves at confidence >= 0.8 and the share of them that are real.
+ECE (5 equal-width bins), moves at confidence >= 0.8 and the share of them that are real,
+and moves whose confidence is unknown (NaN: the simulated studies reported no move).
 """
 
 from __future__ import annotations
@@ -45,11 +46,13 @@ def run(method: str, setting: str, seeds: int, draws: int, smooth) -> dict:
         confs.append(found["confidence"].to_numpy(dtype=float))
         reals.append(score_moves(found, truth))
     conf, real = np.concatenate(confs), np.concatenate(reals)
+    unknown = int(np.isnan(conf).sum())  # no simulated move to learn from
+    conf, real = conf[~np.isnan(conf)], real[~np.isnan(conf)]
     _, ece = reliability(conf, real)
     high = conf >= 0.8
     return {"method": method, "setting": setting, "moves": conf.size, "real": int(real.sum()),
             "ece": ece, "high": int(high.sum()), "high_real": float(real[high].mean()) if high.any() else float("nan"),
-            "seconds": time.perf_counter() - start}
+            "unknown": unknown, "seconds": time.perf_counter() - start}
 
 
 def main() -> None:
@@ -61,12 +64,12 @@ def main() -> None:
     parser.add_argument("--smooth", default="auto")
     args = parser.parse_args()
     smooth = args.smooth if args.smooth == "auto" else float(args.smooth)
-    print(f"{'method':<11}{'setting':<8}{'moves':>7}{'real':>6}{'ECE':>7}{'>=0.8':>7}{'real':>7}{'s':>7}")
+    print(f"{'method':<11}{'setting':<8}{'moves':>7}{'real':>6}{'ECE':>7}{'>=0.8':>7}{'real':>7}{'NaN':>6}{'s':>7}")
     for setting in args.settings.split(","):
         for method in args.methods.split(","):
             r = run(method, setting, args.seeds, args.draws, smooth)
             print(f"{r['method']:<11}{r['setting']:<8}{r['moves']:>7}{r['real']:>6}{r['ece']:>7.3f}{r['high']:>7}"
-                  f"{r['high_real']:>7.2f}{r['seconds']:>7.0f}", flush=True)
+                  f"{r['high_real']:>7.2f}{r['unknown']:>6}{r['seconds']:>7.0f}", flush=True)
 
 
 if __name__ == "__main__":
