@@ -549,10 +549,9 @@ class Study:
 
         Periods aligned before keep their tracks exactly (new periods are
         aligned after them) unless ``rebuild``; track names are kept by track
-        id.  Each move's ``confidence`` is the share of ``draws`` bootstrap
-        replicates (each period's events resampled with replacement and both
-        periods refitted with the fit's own settings) in which the move is
-        reproduced (:func:`tracker.longitudinal.confidence.move_confidence`);
+        id.  Each move's ``confidence`` is the probability that it is real,
+        learned on ``draws`` studies simulated from the fit and refitted with
+        its own procedure (:func:`tracker.pipeline.calibration.calibrated_confidence`);
         ``draws=0`` skips it.  Moves into or out of the no-tie track (0) are
         left out unless ``include_isolates``: in sparse data an actor with no
         event in one year has not changed role.
@@ -592,6 +591,38 @@ class Study:
         carried = {t: n for t, n in carried.items() if t not in own}
         self.store.set_track_names(fit_id, {**own, **carried})
         return carried
+
+    def calibration(self, *, fit: int | None = None, studies: int = 20, seed: int | None = None) -> dict:
+        """Check move confidence on studies simulated from the fit; store and return the result.
+
+        Studies are drawn from the fitted model, refitted with the fit's own
+        procedure and aligned with the stored alignment's settings; their
+        moves, whose truth is known, are scored by a confidence map learned on
+        the other half of the studies (:func:`tracker.pipeline.calibration.calibration_check`).
+        Returns ``{"fit", "studies", "moves", "ece", "share_real_at_08", "bins", ...}``:
+        ``bins`` are 5 equal-width confidence bins with the number of moves,
+        their mean confidence and the share that is real.
+        """
+        from tracker.pipeline.calibration import calibration_check
+        from tracker.pipeline.tracking import aligned_inputs, stored_alignment
+
+        if studies < 2:
+            raise UsageError("--studies must be at least 2 (half of them check the other half)")
+        info = self.store.current_fit(fit)
+        fit_id = info["id"]
+        self._require_alignment(fit_id)
+        periods = aligned_inputs(self.store, fit_id)
+        alignment = stored_alignment(self.store, fit_id, [p.period for p in periods])
+        params = self.store.alignment_params(fit_id) or {}
+        result = calibration_check(self.store, info, periods, alignment, self.store.moves(fit_id), studies=studies,
+                                   seed=info["seed"] if seed is None else seed, align_params=params)
+        result["fit"] = fit_id
+        self.store.save_calibration(fit_id, result)
+        return result
+
+    def latest_calibration(self, fit: int | None = None) -> dict | None:
+        """The last stored calibration check of the current (or a chosen) fit, or None."""
+        return self.store.latest_calibration(self.store.current_fit(fit)["id"])
 
     def tracks(self, fit: int | None = None) -> pd.DataFrame:
         """Tracks of the current (or a chosen) fit: id, name, first and last period, parent, merges, size."""
@@ -775,6 +806,10 @@ class Study:
             "relations": [f"{r.name} ({'directed' if r.directed else 'undirected'})" for r in relations],
             "counts": self.store.counts(),
         }
+        check = self.store.latest_calibration(fit_id)
+        if check:
+            tables["calibration"] = pd.DataFrame(check["bins"])
+            meta["calibration"] = check
         alignment = self.store.alignment_params(fit_id)
         if alignment:
             meta["alignment"] = ", ".join(f"{k}={v}" for k, v in alignment.items())

@@ -419,8 +419,10 @@ def _split(values) -> list[str] | None:
 @click.option("--joint", is_flag=True,
               help="Deprecated: use --method dynamic (one model over all periods).")
 @click.option("--smooth", "smoothing", default=None,
-              help="How strongly to resist changes of position from one period to the next (change penalty, in nats): "
-                   "auto, off (fit each period alone) or a number; higher means fewer, surer moves [default: auto].")
+              help="Descriptive methods: how strongly to resist changes of position from one period to the next "
+                   "(change penalty, added to the method's own objective, in units of its per-actor objective): auto "
+                   "(0.5 for structural, concor and optimize; none for the others), off (fit each period alone) or a "
+                   "number; higher means fewer, surer moves [default: auto]. The dynamic model links periods itself.")
 @computing
 @click.pass_context
 def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations, draws, null_model, k_range, linkage,
@@ -574,10 +576,12 @@ def _structures_frame(table: pd.DataFrame) -> pd.DataFrame:
 @click.option("--max-gap", default=0, show_default=True, type=int,
               help="How many periods a track may be missing and still continue afterwards.")
 @click.option("--draws", default=20, show_default=True, type=int,
-              help="Resampled copies of the data used to judge how sure each move is (bootstrap draws; 0 = none).")
+              help="Descriptive methods: studies simulated from the fit and refitted the same way, to learn how "
+                   "likely each move is to be real (parametric bootstrap; 0 = no confidence). The dynamic model "
+                   "gives its posterior probability instead.")
 @click.option("--seed", type=int,
-              help="Starting number of the resampling (seed; default: the fit's seed); the same seed gives the same "
-                   "confidences.")
+              help="Starting number of the simulated studies (seed; default: the fit's seed); the same seed gives "
+                   "the same confidences.")
 @click.option("--rebuild", is_flag=True,
               help="Link every period again from scratch (track numbers and names carried over by best match).")
 @click.option("--include-isolates", is_flag=True,
@@ -604,6 +608,23 @@ def align(ctx, fit_id, overlap_weight, link_threshold, split_threshold, max_gap,
         + (f" ({low} with confidence below 0.5)" if draws and len(moves) else "")
     )
     _emit(result["tracks"], "table", None, title="Tracks")
+
+
+@main.command()
+@click.option("--fit", "fit_id", type=int, help="A stored fit (default: the current one).")
+@click.option("--studies", default=20, show_default=True, type=int,
+              help="Studies simulated from the fit, refitted with its own settings.")
+@click.option("--seed", type=int, help="Seed of the simulated studies (default: the fit's seed).")
+@computing
+@click.pass_context
+def calibration(ctx, fit_id, studies, seed):
+    """Check that move confidence is a probability: simulate studies from the fit, refit, compare."""
+    result = _study(ctx).calibration(fit=fit_id, studies=studies, seed=seed)
+    table = pd.DataFrame(result["bins"])
+    _emit(table, "table", None, title="Move confidence against the share of moves that are real")
+    ece = "n/a" if result["ece"] is None else f"{result['ece']:.3f}"
+    click.echo(f"fit {result['fit']}: {result['studies']} simulated studies, {result['moves']} moves; "
+               f"expected calibration error {ece} (0 = confidence matches how often moves are real)")
 
 
 @main.command()
@@ -644,7 +665,8 @@ def moves(ctx, fmt, output, fit_id, min_confidence):
         frame = frame.assign(note=["low confidence" if c < 0.5 else "" for c in frame["confidence"].fillna(1.0)])
     _emit(frame, fmt, output, title="Moves")
     if fmt == "table" and output is None:
-        click.echo("confidence: share of bootstrap refits that reproduce the move; a move below 0.5 may be noise.")
+        click.echo("confidence: probability that the move is real, learned on studies simulated from the fit; "
+                   "roletrail calibration checks it.")
 
 
 @main.command()
@@ -782,7 +804,7 @@ def chart(ctx, name, output, fit_id, actor):
               help="Folder for the demo study and its report.")
 @click.option("--list", "list_only", is_flag=True, help="List the bundled scenarios and stop.")
 @click.option("--draws", default=10, show_default=True, type=int,
-              help="Resampled copies of the data used to judge how sure each move is (bootstrap draws).")
+              help="Studies simulated from the fit to learn how likely each move is to be real (descriptive methods).")
 @computing
 def demo(scenario, out, list_only, draws):
     """Run a bundled invented scenario end to end: import, fit, align, report."""

@@ -13,6 +13,7 @@ from sklearn.metrics import adjusted_rand_score
 
 from tests.helpers.planted import block_density, planted_dynamic, standin_positions
 from tracker.blockmodel.partition import Partition
+from tracker.blockmodel.positions import find_positions
 from tracker.errors import UsageError
 from tracker.longitudinal import (
     ISOLATES_TRACK,
@@ -21,7 +22,6 @@ from tracker.longitudinal import (
     max_weight_matching,
     memberships,
     moves,
-    smoothed_partitions,
 )
 
 
@@ -274,10 +274,7 @@ def test_tracks_recover_planted_positions_and_moves():
     directed = snaps[0][3]
     # Per-period fits (no change penalty, no pooled image), then numbered at random
     # in each period so that the alignment has label switching to undo.
-    parts = smoothed_partitions(
-        mats, directed, [s[1] for s in snaps], 3, change_penalty=0.0, image_pooling=0.0,
-        init="periods", restarts=0, fit=standin_positions,
-    )
+    parts = [find_positions(m, directed, 3, method="sbm", seed=0) for m in mats]
     rng = np.random.default_rng(0)
     pps = []
     for (period, actors, m, _), part in zip(snaps, parts):

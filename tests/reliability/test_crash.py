@@ -170,6 +170,6 @@ def test_align_killed_at_random_moments(tmp_path):
     with Study(before_db) as study:
         study.import_events(events, source="source", target="target", date="date", relation="kind", weight="w")
         study.fit(positions=3, draws=0)
-    # bootstrap draws make the alignment long enough to be killed while it computes
-    outcome = _crash_many(tmp_path, before_db, ["align", "--draws", "30"], seed=13)
+    # simulated studies for move confidence make the alignment long enough to be killed while it computes
+    outcome = _crash_many(tmp_path, before_db, ["align", "--draws", "6"], seed=13)
     assert outcome["killed_before"] >= 3, outcome

@@ -25,7 +25,7 @@ from tracker.blockmodel.positions import find_positions
 from tracker.errors import UsageError
 from tracker.snapshot import Snapshot
 
-__all__ = ["FitSettings", "PeriodFit", "fit_snapshot", "fit_partition", "smoothing_applies"]
+__all__ = ["FitSettings", "PeriodFit", "fit_snapshot", "fit_partition"]
 
 
 @dataclass(frozen=True)
@@ -59,17 +59,13 @@ class FitSettings:
         Method options (``linkage``, ``measure``, ``restarts``, ``exact``,
         ``degree_corrected`` ...).
     smoothing : float or "auto"
-        Change penalty (in nats) of evolutionary fitting across periods; 0 fits
-        each period alone.  ``"auto"`` (the default) uses
-        :func:`tracker.longitudinal.smoothing.default_change_penalty`: the
-        log-odds of a Markov chain that keeps an actor's position with
-        probability 0.9, so a one-period blip must be supported by about twice
-        that evidence (a likelihood ratio near 330 for three positions) while
-        a lasting move pays once.  Fitting each period alone turns sparse-year
-        noise into false moves (on planted data about 250 false moves against
-        1-5 when smoothed; see the module).  It is not used with ``regular``
-        (regular equivalence is not a blockmodel likelihood) nor with joint
-        SBM fits, which link periods themselves.
+        Relative change penalty ``c`` of evolutionary fitting across periods
+        (:mod:`tracker.longitudinal.smoothing`): the method's own objective plus
+        ``c`` times its per-actor objective scale for each change; 0 fits each
+        period alone with exactly the method's own call.  ``"auto"`` (the
+        default) is ``c = 0.5`` for the methods that define a penalty
+        (structural, CONCOR, optimize) and 0 for the others; a number above 0
+        for another method is refused.  Joint SBM fits link periods themselves.
     """
 
     method: str = "dynamic"
@@ -90,7 +86,7 @@ class FitSettings:
         if self.null_model not in ("ties", "degrees"):
             raise UsageError(f"--null takes 'ties' or 'degrees', not {self.null_model!r}")
         if isinstance(self.smoothing, str) and self.smoothing != "auto":
-            raise UsageError(f"--smooth takes 'auto', 'off' or a penalty in nats (a number), not {self.smoothing!r}")
+            raise UsageError(f"--smooth takes 'auto', 'off' or a relative penalty (a number), not {self.smoothing!r}")
         if not isinstance(self.smoothing, str) and self.smoothing < 0:
             raise UsageError("--smooth must be 0 or more")
         if self.criterion not in CRITERIA:
@@ -200,10 +196,3 @@ def _plain(value):
     if isinstance(value, float) and not np.isfinite(value):
         return None
     return value
-
-
-def smoothing_applies(settings: FitSettings) -> bool:
-    """Whether a fit is smoothed across periods (see :attr:`FitSettings.smoothing`)."""
-    if settings.options.get("joint") or settings.method in ("regular", "dynamic"):
-        return False
-    return settings.smoothing == "auto" or float(settings.smoothing) > 0

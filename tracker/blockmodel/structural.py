@@ -41,6 +41,7 @@ from tracker.blockmodel.equivalence import (
     structural_correlations,
     structural_distances,
 )
+from tracker.blockmodel.evolution import check_prior, penalised, per_actor_scale
 from tracker.errors import UsageError
 
 __all__ = ["StructuralPositions"]
@@ -96,6 +97,13 @@ class StructuralPositions:
         and reported in ``approximation_``.
     components : int, default 32
         Components of that embedding.
+    prior_labels : array of int, optional
+        Positions of the previous period (-1 unknown), for evolutionary fitting.
+    change_penalty : float, default 0
+        ``c`` of :mod:`tracker.blockmodel.evolution`: with ``prior_labels``, the
+        dissimilarity clustered (squared distance for Ward, else the distance or
+        ``1 - r``) of every pair apart before grows by ``c`` times the per-actor
+        objective of the unsmoothed partition.  0 changes nothing.
 
     Attributes
     ----------
@@ -129,13 +137,15 @@ class StructuralPositions:
     """
 
     def __init__(self, n_positions, *, seed=0, linkage=None, measure="euclidean", exact_limit=None,
-                 components=N_COMPONENTS):
+                 components=N_COMPONENTS, prior_labels=None, change_penalty=0.0):
         self.n_positions = n_positions
         self.seed = seed
         self.linkage = linkage
         self.measure = measure
         self.exact_limit = exact_limit
         self.components = components
+        self.prior_labels = prior_labels
+        self.change_penalty = change_penalty
 
     def fit(self, matrices: Sequence, directed: Sequence[bool]) -> "StructuralPositions":
         """Cluster the actors of ``matrices`` (one sparse ``n x n`` matrix per relation)."""
@@ -156,6 +166,26 @@ class StructuralPositions:
         self.approximation_ = None
         if n_positions >= n or n_positions == 1:
             labels = np.arange(n) if n_positions >= n else np.zeros(n, dtype=np.int64)
+        elif (prior := check_prior(self.prior_labels, n)) is not None and self.change_penalty:
+            if n > limit:
+                raise UsageError(f"evolutionary smoothing of structural positions needs the exact distances, which "
+                                 f"are not affordable for {n} actors (limit {limit}); fit with --smooth off, or use "
+                                 "the dynamic model (--method dynamic)")
+            if self.measure == "euclidean":
+                dist = structural_distances(matrices, directed)
+            else:
+                dist = structural_correlations(matrices, directed)
+                np.subtract(1.0, dist, out=dist)
+                np.fill_diagonal(dist, 0.0)
+            # Evolutionary fitting (tracker.blockmodel.evolution): Ward's objective
+            # is in squared distances, the other linkages' in the dissimilarity.
+            square = method == "ward"
+            delta = dist * dist if square else dist
+            scale = per_actor_scale(delta, self._cluster(squareform(dist, checks=False), method, n_positions))
+            self.change_cost_ = float(self.change_penalty) * scale
+            delta = penalised(delta, prior, self.change_cost_)
+            dist = np.sqrt(delta) if square else delta
+            labels = self._cluster(squareform(dist, checks=False), method, n_positions)
         elif n > limit:
             labels = self._fit_large(mats, dirs, n, n_positions, method, limit)
         else:
@@ -167,14 +197,7 @@ class StructuralPositions:
                 np.fill_diagonal(dist, 0.0)
                 condensed = squareform(dist, checks=False)
                 del dist
-            self.linkage_ = linkage(condensed, method=method)
-            labels = fcluster(self.linkage_, t=n_positions, criterion="maxclust")
-            if labels.max() < n_positions:
-                # Merges tied at the cut height make maxclust stop short (three equally
-                # distant groups asked for two positions give one).  Cut the tree at
-                # exactly the number asked for, but never split identical profiles.
-                distinct = int(fcluster(self.linkage_, t=1e-12, criterion="distance").max())
-                labels = cut_tree(self.linkage_, n_clusters=min(n_positions, distinct)).ravel()
+            labels = self._cluster(condensed, method, n_positions)
         self.labels_ = _first_appearance(labels)
         self.n_positions_ = int(self.labels_.max()) + 1 if n else 0
         return self
@@ -215,3 +238,15 @@ class StructuralPositions:
                      f"{float(residual.max()):.3g})"),
         }
         return sub[classes]
+
+    def _cluster(self, condensed: np.ndarray, method: str, n_positions: int) -> np.ndarray:
+        """Hierarchical clustering of a condensed dissimilarity matrix, cut into ``n_positions``."""
+        self.linkage_ = linkage(condensed, method=method)
+        labels = fcluster(self.linkage_, t=n_positions, criterion="maxclust")
+        if labels.max() < n_positions:
+            # Merges tied at the cut height make maxclust stop short (three equally
+            # distant groups asked for two positions give one).  Cut the tree at
+            # exactly the number asked for, but never split identical profiles.
+            distinct = int(fcluster(self.linkage_, t=1e-12, criterion="distance").max())
+            labels = cut_tree(self.linkage_, n_clusters=min(n_positions, distinct)).ravel()
+        return labels

@@ -4,9 +4,9 @@ Pure functions on arrays and data frames (no database, no printing, no files)::
 
     align.py        persistent tracks from per-period positions (Hungarian method on
                     membership overlap and role similarity; births, ends, splits, merges)
-    smoothing.py    evolutionary blockmodel: per-period fits that pay for change
+    smoothing.py    evolutionary fitting: each method's own objective plus a cost per change
     movement.py     trajectories, moves, transition tables, mobility per step
-    confidence.py   how often a move survives resampling the period's events
+    confidence.py   calibrated move confidence (parametric bootstrap from the fitted model)
 """
 
 from tracker.longitudinal.align import (
@@ -19,13 +19,13 @@ from tracker.longitudinal.align import (
     max_weight_matching,
     memberships,
 )
-from tracker.longitudinal.confidence import move_confidence, resample_matrices
+from tracker.longitudinal.confidence import MoveCalibrator, move_features, reliability, simulate_period
 from tracker.longitudinal.movement import mobility, moves, stayers, trajectories, transitions
 from tracker.longitudinal.smoothing import (
-    default_change_penalty,
+    DEFAULT_PENALTY,
+    evolutionary_partitions,
     smoothed_fits,
-    smoothed_partitions,
-    smoothed_refitter,
+    smoothing_penalty,
 )
 
 __all__ = [
@@ -37,15 +37,17 @@ __all__ = [
     "align",
     "max_weight_matching",
     "memberships",
-    "move_confidence",
-    "resample_matrices",
+    "MoveCalibrator",
+    "move_features",
+    "reliability",
+    "simulate_period",
     "mobility",
     "moves",
     "stayers",
     "trajectories",
     "transitions",
-    "default_change_penalty",
+    "DEFAULT_PENALTY",
+    "evolutionary_partitions",
     "smoothed_fits",
-    "smoothed_partitions",
-    "smoothed_refitter",
+    "smoothing_penalty",
 ]

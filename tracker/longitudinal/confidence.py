@@ -1,199 +1,307 @@
-r"""How sure is a move?  The share of bootstrap refits that reproduce it.
+r"""How sure is a move?  The probability that it is real, learned on studies where the truth is known.
 
-A period's tie values are counts of events.  A bootstrap replicate of the period
-draws the same number of events again, with replacement, from the observed ones
-(Efron's nonparametric bootstrap [1]_ applied to the events, as for resampling
-network data in Snijders & Borgatti [2]_):
+A move's confidence should be the probability that the actor really changed
+position between those periods.  Reproducibility under resampling is not that:
+a false move produced by a sparse period is reproduced as often as the noise
+that made it.  So the confidence is learned, by a parametric bootstrap
+(Efron & Tibshirani [1]_, ch. 6) from the fitted model itself:
 
-.. math::
+1. **Simulate.**  Each period is redrawn from the fitted blockmodel: the
+   fitted positions of every present actor (so the fitted moves are the
+   planted moves) and a Bernoulli tie in each pair with the fitted block
+   density :math:`t_{kl}/p_{kl}` of its block, per relation
+   (:func:`simulate_period`; a stochastic blockmodel, Holland, Laskey &
+   Leinhardt [2]_).  The tieless actors' position has density 0, so they stay
+   tieless.
+2. **Refit** each simulated study with the fit's own procedure and settings
+   (method, smoothing, alignment) and list its moves.  Each reported move is
+   *real* when the actor's planted track differs between the two periods.
+3. **Score.**  Each move gets a few features that any method's result has
+   (:data:`FEATURES`: the actor's ties in both periods, how long it stays in
+   the new track and stayed in the old one, and the share of its ties that go
+   to the new and the old track's members in each period).
+4. **Calibrate.**  A logistic regression on those features gives a raw score,
+   mapped to a probability by isotonic regression (Zadrozny & Elkan [3]_;
+   scikit-learn's ``CalibratedClassifierCV(method="isotonic")``), both learned
+   on the simulated moves (:class:`MoveCalibrator`).  The observed study's
+   moves are then scored by the same map.
 
-    E = \operatorname{round}\Big(\sum_{(i,j)} x_{ij}\Big), \qquad
-    (x^*_{ij}) \sim \operatorname{Multinomial}\big(E, \; x_{ij} / \textstyle\sum x\big)
-
-over the ordered pairs of a directed relation, or the unordered pairs
-(:math:`i < j`) of an undirected one, which is then mirrored.  Only observed ties
-can be drawn, so memory stays proportional to the ties.
-
-A move of actor *a* from track *f* (period *s*) to track *g* (period *t*) is
-reproduced in a replicate when refitting both periods on resampled events puts
-*a* in *f* at *s* and in *g* at *t*.  Refitted positions carry arbitrary
-numbers, so each refit is first matched to the original positions of its period
-by the Hungarian method on Jaccard overlap (Kuhn [3]_); the original position
-gives the track.  The confidence is the share of replicates that reproduce the
-move.
+The procedure is checked, on the user's own study, by
+:func:`reliability`: moves of simulated studies scored by a map learned on the
+*other* simulated studies (two folds), binned by confidence, against the share
+that is real, with the expected calibration error (ECE; Naeini, Cooper &
+Hauskrecht [4]_; Guo et al. [5]_ for the equal-width-bin form).
 
 References
 ----------
-.. [1] Efron, B. (1979). Bootstrap methods: another look at the jackknife.
-   Annals of Statistics 7, 1-26.
-.. [2] Snijders, T. A. B. & Borgatti, S. P. (1999). Non-parametric standard errors
-   and tests for network statistics. Connections 22, 161-170.
-.. [3] Kuhn, H. W. (1955). The Hungarian method for the assignment problem.
-   Naval Research Logistics Quarterly 2, 83-97.
+.. [1] Efron, B. & Tibshirani, R. J. (1993). An Introduction to the Bootstrap. Chapman & Hall.
+.. [2] Holland, P. W., Laskey, K. B. & Leinhardt, S. (1983). Stochastic blockmodels:
+   first steps. Social Networks 5, 109-137.
+.. [3] Zadrozny, B. & Elkan, C. (2002). Transforming classifier scores into accurate
+   multiclass probability estimates. KDD.
+.. [4] Naeini, M. P., Cooper, G. F. & Hauskrecht, M. (2015). Obtaining well calibrated
+   probabilities using Bayesian binning. AAAI.
+.. [5] Guo, C., Pleiss, G., Sun, Y. & Weinberger, K. Q. (2017). On calibration of modern
+   neural networks. ICML.
 """
 
 from __future__ import annotations
 
-from typing import Callable, Mapping, Sequence
+from typing import Mapping, Sequence
 
 import numpy as np
 import pandas as pd
 import scipy.sparse as sp
 
-from tracker.errors import UsageError
-from tracker.longitudinal.align import max_weight_matching
+__all__ = ["FEATURES", "simulate_period", "move_features", "true_moves_mask", "MoveCalibrator", "reliability"]
 
-__all__ = ["resample_matrices", "move_confidence"]
+#: Features of a move, computed by :func:`move_features`.
+FEATURES = ("ties_from", "ties_to", "stay_after", "stay_before", "affinity_to", "affinity_from")
 
 
-def resample_matrices(matrices: Sequence, directed: Sequence[bool], rng: np.random.Generator) -> list:
-    """One bootstrap replicate of a period's events (see the module docstring).
+def simulate_period(labels: np.ndarray, density: np.ndarray, directed: Sequence[bool],
+                    rng: np.random.Generator) -> list:
+    """One period drawn from a blockmodel: a Bernoulli tie per pair with its block's density.
 
     Parameters
     ----------
-    matrices : sequence of scipy.sparse arrays
-        One ``n x n`` matrix of event counts per relation (zero diagonal; symmetric
-        when undirected).
+    labels : numpy.ndarray of int, shape (n,)
+        Position of each actor, ``0 .. B-1``.
+    density : numpy.ndarray, shape (R, B, B)
+        Tie probability per relation and block (values above 1 are taken as 1).
     directed : sequence of bool
+        One flag per relation.
     rng : numpy.random.Generator
 
     Returns
     -------
     list of scipy.sparse.csr_array
-        Same shapes; each relation keeps its total number of events (rounded).
+        One 0/1 matrix per relation (symmetric when undirected, zero diagonal).
+        Each block's number of ties is Binomial(possible pairs, density), placed
+        on distinct pairs drawn uniformly: the same law as one coin per pair,
+        with memory proportional to the ties.
 
     Examples
     --------
-    >>> import numpy as np, scipy.sparse as sp
-    >>> a = sp.csr_array(np.array([[0, 3, 1], [3, 0, 0], [1, 0, 0]], dtype=float))
-    >>> b = resample_matrices([a], [False], np.random.default_rng(0))[0]
-    >>> float(b.sum()) / 2, bool((abs(b - b.T)).sum() == 0)
-    (4.0, True)
+    >>> a = simulate_period(np.array([0, 0, 1]), np.ones((1, 2, 2)), [False], np.random.default_rng(0))[0]
+    >>> a.toarray().astype(int).tolist()
+    [[0, 1, 1], [1, 0, 1], [1, 1, 0]]
     """
-    if len(matrices) != len(directed):
-        raise UsageError("give one directedness flag per relation")
+    labels = np.asarray(labels, dtype=np.int64)
+    density = np.asarray(density, dtype=np.float64)
+    if density.ndim != 3 or density.shape[0] != len(directed):
+        raise ValueError("density must have shape (relations, B, B), one relation per directed flag")
+    n = labels.size
+    n_pos = density.shape[1]
+    if n and labels.max() >= n_pos:
+        raise ValueError("a label is outside the blocks of density")
+    members = [np.flatnonzero(labels == k) for k in range(n_pos)]
     out = []
-    for mat, is_directed in zip(matrices, directed):
-        coo = sp.coo_array(mat)
-        n = coo.shape[0]
-        keep = (coo.data > 0) & (coo.row != coo.col)
+    for r, is_directed in enumerate(directed):
+        rows, cols = [], []
+        for k in range(n_pos):
+            for l in range(n_pos) if is_directed else range(k, n_pos):
+                p = min(max(float(density[r, k, l]), 0.0), 1.0)
+                nk, nl = members[k].size, members[l].size
+                if p == 0 or nk == 0 or nl == 0:
+                    continue
+                if k != l:
+                    possible = nk * nl
+                elif is_directed:
+                    possible = nk * (nk - 1)
+                else:
+                    possible = nk * (nk - 1) // 2
+                if possible == 0:
+                    continue
+                m = int(rng.binomial(possible, p))
+                idx = rng.choice(possible, size=m, replace=False).astype(np.int64)
+                i, j = _decode(idx, nk, nl, k == l, is_directed)
+                rows.append(members[k][i])
+                cols.append(members[l][j])
+        r_all = np.concatenate(rows) if rows else np.zeros(0, dtype=np.int64)
+        c_all = np.concatenate(cols) if cols else np.zeros(0, dtype=np.int64)
         if not is_directed:
-            keep &= coo.row < coo.col
-        rows, cols, vals = coo.row[keep], coo.col[keep], coo.data[keep].astype(np.float64)
-        total = vals.sum()
-        events = int(round(total))
-        if events == 0 or vals.size == 0:
-            out.append(sp.csr_array((n, n), dtype=np.float64))
-            continue
-        counts = rng.multinomial(events, vals / total).astype(np.float64)
-        hit = counts > 0
-        rows, cols, counts = rows[hit], cols[hit], counts[hit]
-        if not is_directed:
-            rows, cols = np.concatenate([rows, cols]), np.concatenate([cols, rows])
-            counts = np.concatenate([counts, counts])
-        out.append(sp.csr_array((counts, (rows, cols)), shape=(n, n), dtype=np.float64))
+            r_all, c_all = np.concatenate([r_all, c_all]), np.concatenate([c_all, r_all])
+        out.append(sp.csr_array((np.ones(r_all.size), (r_all, c_all)), shape=(n, n)))
     return out
 
 
-def move_confidence(
-    moves: pd.DataFrame,
-    fit_period: Callable[[str, Sequence], object],
-    *,
-    matrices: Mapping[str, Sequence],
-    directed: Sequence[bool],
-    actors: Mapping[str, Sequence[str]],
-    labels: Mapping[str, np.ndarray],
-    assignment: Mapping[str, np.ndarray],
-    draws: int = 50,
-    seed: int = 0,
-) -> np.ndarray:
-    """Share of bootstrap replicates in which each move is reproduced.
+def _decode(idx, nk, nl, diagonal, directed):
+    """Pair index -> (row, column) inside a block; diagonal blocks skip i == j (and j < i if undirected)."""
+    if not diagonal:
+        return idx // nl, idx % nl
+    if directed:
+        i = idx // (nk - 1)
+        jj = idx % (nk - 1)
+        return i, jj + (jj >= i)
+    # Row-major index of the pair (i < j) in the strict upper triangle.
+    n = nk
+    i = (n - 2 - np.floor(np.sqrt(-8.0 * idx + 4.0 * n * (n - 1) - 7) / 2.0 - 0.5)).astype(np.int64)
+    j = idx + i + 1 - n * (n - 1) // 2 + (n - i) * ((n - i) - 1) // 2
+    return i, j.astype(np.int64)
+
+
+def move_features(moves: pd.DataFrame, tracks: pd.DataFrame, order: Sequence[str],
+                  matrices: Mapping[str, Sequence], actors: Mapping[str, Sequence[str]]) -> np.ndarray:
+    """The :data:`FEATURES` of each move, shape ``(len(moves), 6)``.
 
     Parameters
     ----------
     moves : pandas.DataFrame
-        Columns ``actor, from_period, to_period, from_track, to_track`` (as made by
-        :func:`tracker.longitudinal.movement.moves`).
-    fit_period : callable ``(period, matrices) -> labels``
-        Refits one period on resampled matrices (same actors, same order) and returns
-        position labels per actor (an array, or a ``Partition``).  The API layer
-        passes the fitting it used for the study, e.g.
-        :func:`tracker.longitudinal.smoothing.smoothed_refitter` or a wrapper of
-        ``find_positions`` with a fixed seed.
-    matrices, actors, labels, assignment : mappings keyed by period
-        The period's observed matrices, its actors (in matrix order), the original
-        position label of each actor, and the original position -> track map
-        (``Alignment.assignment``).
-    directed : sequence of bool
-    draws : int
-        Number of bootstrap replicates.
-    seed : int
-
-    Returns
-    -------
-    numpy.ndarray of float, shape (len(moves),)
-        In [0, 1].
+        ``actor, from_period, to_period, from_track, to_track``.
+    tracks : pandas.DataFrame
+        ``period, actor, track``: every actor's track in every period.
+    order : sequence of str
+        The periods in time order.
+    matrices, actors : mappings keyed by period
+        Each period's matrices (one per relation) and its actors in matrix order.
 
     Notes
     -----
-    Cost: ``draws`` x (number of distinct periods named in ``moves``) calls of
-    ``fit_period``, plus one multinomial draw over the ties of each refitted period;
-    every move of a period shares the same refits.  With 50 draws and 10 periods
-    that is 500 refits -- choose a fast fitting method or fewer draws on large studies.
+    ``ties_*`` is log(1 + number of actors tied to the mover, any relation,
+    either direction); ``stay_after`` (``stay_before``) log(1 + consecutive
+    periods in the new track from the move on (in the old one up to it));
+    ``affinity_to`` is, at the destination period, the share of the mover's
+    tied actors in the new track minus the share in the old one, and
+    ``affinity_from`` the share in the old track minus the new at the period
+    left (0 for an actor without ties).
     """
     n_moves = len(moves)
+    out = np.zeros((n_moves, len(FEATURES)))
     if n_moves == 0:
-        return np.zeros(0)
-    if draws < 1:
-        raise UsageError("draws must be at least 1")
-    need = list(dict.fromkeys(list(moves["from_period"].astype(str)) + list(moves["to_period"].astype(str))))
-    order = need
-    for p in order:
-        if p not in matrices or p not in actors or p not in labels or p not in assignment:
-            raise UsageError(f"period {p} of a move has no matrices, actors, labels or tracks; pass them all")
-    index = {p: {a: i for i, a in enumerate(actors[p])} for p in order}
-    try:
-        i_from = np.array([index[str(p)][a] for p, a in zip(moves["from_period"], moves["actor"])])
-        i_to = np.array([index[str(p)][a] for p, a in zip(moves["to_period"], moves["actor"])])
-    except KeyError as err:
-        raise UsageError(f"actor {err.args[0]!r} of a move is not present in its period; check the moves") from None
-    p_from = moves["from_period"].astype(str).to_numpy()
-    p_to = moves["to_period"].astype(str).to_numpy()
-    f_track = moves["from_track"].to_numpy(dtype=np.int64)
-    g_track = moves["to_track"].to_numpy(dtype=np.int64)
-
-    rng = np.random.default_rng(seed)
-    hits = np.zeros(n_moves)
-    for _ in range(draws):
-        refit_tracks = {}
-        for p in order:
-            sample = resample_matrices(matrices[p], directed, rng)
-            new = fit_period(p, sample)
-            new = np.asarray(getattr(new, "labels", new), dtype=np.int64)
-            refit_tracks[p] = _tracks_via_original(new, np.asarray(labels[p]), np.asarray(assignment[p]))
-        ok_from = np.empty(n_moves, dtype=bool)
-        ok_to = np.empty(n_moves, dtype=bool)
-        for p in order:
-            m = p_from == p
-            ok_from[m] = refit_tracks[p][i_from[m]] == f_track[m]
-            m = p_to == p
-            ok_to[m] = refit_tracks[p][i_to[m]] == g_track[m]
-        hits += ok_from & ok_to
-    return hits / draws
+        return out
+    order = [str(p) for p in order]
+    rank = {p: i for i, p in enumerate(order)}
+    wide = tracks.pivot_table(index="actor", columns="period", values="track", aggfunc="first")
+    wide = wide.reindex(columns=order)
+    grid = wide.to_numpy(dtype=np.float64)  # NaN where absent
+    row_of = {a: i for i, a in enumerate(wide.index)}
+    adjacency = {p: _neighbours(matrices[p]) for p in set(moves["from_period"].astype(str)) | set(moves["to_period"].astype(str))}
+    index = {p: {a: i for i, a in enumerate(actors[p])} for p in adjacency}
+    track_of = {p: _track_vector(tracks, p, actors[p]) for p in adjacency}
+    for m, (a, fp, tp, ft, tt) in enumerate(zip(moves["actor"], moves["from_period"].astype(str),
+                                                  moves["to_period"].astype(str), moves["from_track"],
+                                                  moves["to_track"])):
+        row = grid[row_of[a]]
+        out[m, 2] = np.log1p(_run(row, rank[tp], +1, tt))
+        out[m, 3] = np.log1p(_run(row, rank[fp], -1, ft))
+        for col, period, mine, other in ((0, fp, ft, tt), (1, tp, tt, ft)):
+            adj = adjacency[period]
+            i = index[period][a]
+            nb = adj.indices[adj.indptr[i]:adj.indptr[i + 1]]
+            out[m, col] = np.log1p(nb.size)
+            if nb.size:
+                where = track_of[period][nb]
+                share = (np.mean(where == mine) - np.mean(where == other))
+                out[m, 5 if col == 0 else 4] = share
+    return out
 
 
-def _tracks_via_original(new: np.ndarray, original: np.ndarray, assignment: np.ndarray) -> np.ndarray:
-    """Track of each actor under a refit, through the best match of refit to original positions."""
-    if new.size != original.size:
-        raise UsageError("the refit returned another number of labels than the period has actors")
-    b_new = int(new.max()) + 1 if new.size else 0
-    b_old = assignment.size
-    cont = np.zeros((b_new, b_old))
-    np.add.at(cont, (new, original), 1.0)
-    union = cont.sum(axis=1)[:, None] + cont.sum(axis=0)[None, :] - cont
-    jac = np.divide(cont, union, out=np.zeros_like(cont), where=union > 0)
-    rows, cols = max_weight_matching(jac)
-    mapped = np.full(b_new, -1, dtype=np.int64)
-    good = jac[rows, cols] > 0
-    mapped[rows[good]] = assignment[cols[good]]
-    return mapped[new]
+def _neighbours(mats) -> sp.csr_array:
+    total = None
+    for mat in mats:
+        b = sp.csr_array(mat, dtype=np.float64)
+        b = b + b.T
+        total = b if total is None else total + b
+    total = sp.csr_array(total)
+    total.setdiag(0)
+    total.eliminate_zeros()
+    return total
+
+
+def _track_vector(tracks, period, actors) -> np.ndarray:
+    sub = tracks[tracks["period"].astype(str) == period].set_index("actor")["track"]
+    return np.array([sub.get(a, -1) for a in actors], dtype=np.int64)
+
+
+def _run(row, start, step, track) -> int:
+    """Consecutive presences in ``track`` from ``start`` walking by ``step`` (absences skipped)."""
+    count, t = 0, start
+    while 0 <= t < row.size:
+        if not np.isnan(row[t]):
+            if int(row[t]) != int(track):
+                break
+            count += 1
+        t += step
+    return count
+
+
+def true_moves_mask(moves: pd.DataFrame, truth: pd.DataFrame) -> np.ndarray:
+    """Whether each move is real: the actor's planted track differs between its two periods.
+
+    ``truth`` has columns ``period, actor, track`` (the planted tracks).
+    """
+    if len(moves) == 0:
+        return np.zeros(0, dtype=bool)
+    key = truth.set_index(["period", "actor"])["track"]
+    before = key.reindex(list(zip(moves["from_period"].astype(str), moves["actor"]))).to_numpy()
+    after = key.reindex(list(zip(moves["to_period"].astype(str), moves["actor"]))).to_numpy()
+    return (before != after) & ~pd.isna(before) & ~pd.isna(after)
+
+
+class MoveCalibrator:
+    """Features of a move -> probability that it is real (logistic score, isotonic map).
+
+    ``fit(X, y)`` learns from simulated moves (``y`` real or not); with fewer
+    than 3 real or 3 false moves there is nothing to separate, and every move
+    gets the share of real moves (with one pseudo-move of each kind); without
+    any simulated move, NaN (unknown).
+    """
+
+    def __init__(self) -> None:
+        self.model_ = None
+        self.rate_ = 0.5
+
+    def fit(self, features: np.ndarray, real: np.ndarray) -> "MoveCalibrator":
+        from sklearn.calibration import CalibratedClassifierCV
+        from sklearn.linear_model import LogisticRegression
+        from sklearn.pipeline import make_pipeline
+        from sklearn.preprocessing import StandardScaler
+
+        real = np.asarray(real, dtype=bool)
+        self.rate_ = (real.sum() + 0.5) / (real.size + 1.0) if real.size else float("nan")
+        self.model_ = None
+        if min(real.sum(), (~real).sum()) >= 3:
+            base = make_pipeline(StandardScaler(), LogisticRegression(max_iter=1000))
+            self.model_ = CalibratedClassifierCV(base, method="isotonic", cv=3).fit(features, real)
+        return self
+
+    def predict(self, features: np.ndarray) -> np.ndarray:
+        features = np.asarray(features, dtype=np.float64)
+        if features.shape[0] == 0:
+            return np.zeros(0)
+        if self.model_ is None:
+            return np.full(features.shape[0], self.rate_)
+        return np.clip(self.model_.predict_proba(features)[:, 1], 0.0, 1.0)
+
+
+def reliability(confidence: np.ndarray, real: np.ndarray, bins: int = 5) -> tuple[pd.DataFrame, float]:
+    r"""Reliability table and expected calibration error over equal-width bins.
+
+    .. math:: \mathrm{ECE} = \sum_b \frac{n_b}{N} \,\bigl|\,\bar y_b - \bar c_b\bigr|
+
+    (Naeini et al. 2015; Guo et al. 2017).  Returns a table with ``bin_low,
+    bin_high, moves, mean_confidence, share_real`` (empty bins kept with NaN)
+    and the ECE (NaN without moves).
+
+    >>> table, ece = reliability(np.array([0.1, 0.9, 0.9]), np.array([0, 1, 0]))
+    >>> round(ece, 3), table["moves"].tolist()
+    (0.333, [1, 0, 0, 0, 2])
+    """
+    confidence = np.asarray(confidence, dtype=np.float64)
+    real = np.asarray(real, dtype=np.float64)
+    if bins < 1:
+        raise ValueError("bins must be at least 1")
+    which = np.minimum((confidence * bins).astype(np.int64), bins - 1)
+    rows = []
+    ece = 0.0
+    for b in range(bins):
+        mask = which == b
+        n_b = int(mask.sum())
+        mean_c = float(confidence[mask].mean()) if n_b else float("nan")
+        share = float(real[mask].mean()) if n_b else float("nan")
+        rows.append({"bin_low": b / bins, "bin_high": (b + 1) / bins, "moves": n_b,
+                     "mean_confidence": mean_c, "share_real": share})
+        if n_b:
+            ece += n_b / confidence.size * abs(share - mean_c)
+    return pd.DataFrame(rows), (float(ece) if confidence.size else float("nan"))

@@ -17,7 +17,7 @@ import pandas as pd
 
 from tracker.errors import UsageError
 
-__all__ = ["run_fit", "deprecated_joint", "fit_dynamic", "is_dynamic", "check_dynamic", "frozen_prefix",
+__all__ = ["run_fit", "fit_snapshots", "deprecated_joint", "fit_dynamic", "is_dynamic", "check_dynamic", "frozen_prefix",
            "period_selection", "with_fit_tests", "with_q_values"]
 
 
@@ -34,34 +34,65 @@ def deprecated_joint(method: str, options: dict) -> tuple[str, dict, str | None]
 def run_fit(store, settings, labels: list[str], progress: Callable[[str], None] | None = None) -> list:
     """Per-period results (:class:`tracker.blockmodel.fitting.PeriodFit`) of ``settings`` on periods ``labels``.
 
-    Periods fitted alone are independent tasks (:func:`tracker.execution.map_tasks`:
-    every core, or a Dask cluster); each uses the fit's own seed, so the
-    result does not depend on where or in what order they run.  ``progress``
-    is called once per fitted period; the configured reporter (the command
-    line's bar) follows the same count.
+    The fit procedure itself is :func:`fit_snapshots` (no store); here the
+    periods are read, an evolutionary fit continues from the stored earlier
+    periods of the same fit, and each period's fit test is added
+    (:func:`with_fit_tests`).  ``progress`` is called once per fitted
+    period; the configured reporter (the command line's bar) follows the
+    same count.
     """
-    from tracker.blockmodel.fitting import fit_snapshot, smoothing_applies
-    from tracker.execution import map_tasks
-
     tick = _period_ticks(labels, progress)
     if is_dynamic(settings):
         if list(labels) != store.period_labels():
             raise UsageError("the dynamic model fits all periods together (a position is the same in every "
                              "period); drop --periods, or choose a per-period method such as --method structural")
-        results = fit_dynamic(list(store.snapshots(labels, settings.relations)), settings)
-        for period in labels:
-            tick(period)
-    elif smoothing_applies(settings) and len(store.period_labels()) > 1:
-        from tracker.longitudinal.smoothing import smoothed_fits
-
-        frozen_periods, frozen = frozen_prefix(store, settings, labels)
-        snaps = list(store.snapshots(frozen_periods + labels, settings.relations))
-        results = smoothed_fits(snaps, settings, frozen=frozen, progress=tick)
+        results = fit_snapshots(list(store.snapshots(labels, settings.relations)), settings, progress=tick)
     else:
-        snaps = list(store.snapshots(labels, settings.relations))
-        results = map_tasks(fit_snapshot, [(snap, settings) for snap in snaps],
-                            progress=lambda done, _total: tick(snaps[done - 1].period))
+        frozen_periods, frozen = [], []
+        if _smoothed(settings) and len(store.period_labels()) > 1:
+            frozen_periods, frozen = frozen_prefix(store, settings, labels)
+        snaps = list(store.snapshots(frozen_periods + labels, settings.relations))
+        results = fit_snapshots(snaps, settings, frozen=frozen, progress=tick)
     return with_fit_tests(store, settings, results)
+
+
+def fit_snapshots(snapshots: list, settings, *, frozen: Sequence = (),
+                  progress: Callable[[str], None] | None = None) -> list:
+    """The fit procedure of ``settings`` on snapshots (no store): dynamic, evolutionary, or each period alone.
+
+    Used by :func:`run_fit` and by the calibration check, which refits
+    simulated studies with exactly the procedure of the stored fit.
+    ``frozen`` partitions keep the first snapshots as stored (evolutionary
+    fits only).  Periods fitted alone are independent tasks
+    (:func:`tracker.execution.map_tasks`: every core, or a Dask cluster);
+    each uses the fit's own seed, so the result does not depend on where or
+    in what order they run.
+    """
+    from tracker.blockmodel.fitting import fit_snapshot
+    from tracker.execution import map_tasks
+    from tracker.longitudinal.smoothing import smoothed_fits, smoothing_penalty
+
+    snapshots = list(snapshots)
+    if is_dynamic(settings):
+        results = fit_dynamic(snapshots, settings)
+        if progress is not None:
+            for snap in snapshots:
+                progress(snap.period)
+        return results
+    if _smoothed(settings) and len(snapshots) > 1:
+        return smoothed_fits(snapshots, settings, frozen=frozen, progress=progress)
+    c = smoothing_penalty(settings.method, settings.smoothing)
+    results = map_tasks(fit_snapshot, [(snap, settings) for snap in snapshots],
+                        progress=None if progress is None else (lambda done, _total: progress(snapshots[done - 1].period)))
+    for result in results:
+        result.diagnostics["smoothing"] = {"method": settings.method, "penalty": c, "note": "each period fitted alone"}
+    return results
+
+
+def _smoothed(settings) -> bool:
+    from tracker.longitudinal.smoothing import smoothing_penalty
+
+    return not is_dynamic(settings) and smoothing_penalty(settings.method, settings.smoothing) > 0
 
 
 def with_fit_tests(store, settings, results: list) -> list:

@@ -7,7 +7,6 @@ returns what the API stores.  The maths lives in :mod:`tracker.longitudinal`.
 
 from __future__ import annotations
 
-import functools
 
 import numpy as np
 import pandas as pd
@@ -52,7 +51,8 @@ def align_fit(store, info: dict, params: dict, *, rebuild: bool = False):
     if joint and len(moves):
         moves["confidence"] = dynamic_move_confidence(store.fit_periods(fit_id), moves)
     elif params["draws"] and len(moves):
-        moves["confidence"] = move_confidence_of(store, info, periods, alignment, moves, params["draws"], params["seed"])
+        moves["confidence"] = move_confidence_of(store, info, periods, alignment, moves, params["draws"], params["seed"],
+                                                 params)
     return alignment, moves, order, done
 
 
@@ -142,54 +142,18 @@ def stored_alignment(store, fit_id: int, periods: list[str]):
     links.sort(key=lambda l: rank.get(l.to_period or l.from_period, 0))
     return Alignment(tuple(prefix), dict(sorted(tracks.items())), assignment, links)
 
-def move_confidence_of(store, info: dict, periods: list, alignment, moves: pd.DataFrame, draws: int, seed: int):
-    """Bootstrap confidence of each move, refitting with the fit's own procedure.
+def move_confidence_of(store, info: dict, periods: list, alignment, moves: pd.DataFrame, draws: int, seed: int,
+                       params: dict | None = None):
+    """Probability that each move is real, learned on ``draws`` studies simulated from the fit.
 
-    A smoothed fit is refitted under the smoothed model with the other
-    periods held as fitted (:func:`tracker.longitudinal.smoothing.smoothed_refitter`);
-    a per-period fit by its method alone.
+    Parametric bootstrap from the fitted model, refitted with the fit's own
+    procedure, then a calibration map (:mod:`tracker.pipeline.calibration`,
+    :mod:`tracker.longitudinal.confidence`).
     """
-    from tracker.blockmodel.fitting import FitSettings, smoothing_applies
-    from tracker.blockmodel.partition import Partition
-    from tracker.longitudinal.confidence import move_confidence
-    from tracker.longitudinal.smoothing import smoothed_refitter
+    from tracker.pipeline.calibration import calibrated_confidence
 
-    params = info["params"]
-    settings = FitSettings(**{**params, "relations": tuple(params["relations"]) if params.get("relations") else None})
-    by_period = {p.period: p for p in periods}
-    smoothed = smoothing_applies(settings) and len(periods) > 1
-    needed = [p.period for p in periods] if smoothed else sorted(set(moves["from_period"]) | set(moves["to_period"]))
-    snaps = {s.period: s for s in store.snapshots(needed, settings.relations)}
-    directed = next(iter(snaps.values())).directed
-    if smoothed:
-        n_ordinary = max(p.n_positions - (p.isolates is not None) for p in periods)
-        refit = smoothed_refitter(
-            [snaps[p.period].matrices for p in periods], directed, [p.actors for p in periods],
-            [p.period for p in periods],
-            [Partition(p.labels, p.n_positions, p.isolates) for p in periods], n_ordinary,
-            change_penalty=None if settings.smoothing == "auto" else float(settings.smoothing),
-        )
-    else:
-        # The fit's own settings; the number of positions as fitted (not re-chosen by "auto").
-        # A partial of a module-level function, so that refits can be sent to other processes.
-        positions = {p.period: max(p.n_positions - (1 if p.isolates is not None else 0), 1) for p in periods}
-        refit = functools.partial(_refit_period, positions, directed, settings)
-
-    return move_confidence(
-        moves, refit,
-        matrices={p: snaps[p].matrices for p in needed}, directed=directed,
-        actors={p: snaps[p].actors for p in needed}, labels={p: by_period[p].labels for p in needed},
-        assignment={p: alignment.assignment[p] for p in needed}, draws=draws, seed=seed,
-    )
-
-
-def _refit_period(positions: dict, directed, settings, period: str, matrices):
-    """Refit one period by the fit's method with its fitted number of positions; position labels."""
-    from tracker.blockmodel.positions import find_positions
-
-    return find_positions(matrices, directed, positions[period], method=settings.method, seed=settings.seed,
-                          criterion=settings.criterion, alpha=settings.alpha, cut=settings.cut,
-                          **settings.options).labels
+    return calibrated_confidence(store, info, periods, alignment, moves, max(int(draws), 2), seed,
+                                 align_params=params)
 
 
 def _int(value):

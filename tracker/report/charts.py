@@ -840,6 +840,38 @@ def structure_chart(structures: pd.DataFrame, periods: Sequence[object]) -> alt.
 # --------------------------------------------------------------------------- registry
 
 #: Chart name -> function. Inputs of each function are in :data:`CHART_INPUTS`.
+def calibration_chart(calibration: pd.DataFrame, periods: Sequence[object] = ()) -> alt.LayerChart:
+    """Reliability curve of move confidence: mean confidence per bin against the share of moves that are real.
+
+    ``calibration`` has one row per confidence bin (``bin_low, bin_high,
+    moves, mean_confidence, share_real``), from
+    :func:`tracker.pipeline.calibration.calibration_check`.  Points on the
+    diagonal mean the confidence is the probability that a move is real
+    (reliability diagram, DeGroot & Fienberg 1983); point size is the number
+    of moves in the bin.
+    """
+    if calibration is None or len(calibration) == 0:
+        return _empty_chart("No calibration check yet: run roletrail calibration.")
+    frame = calibration.dropna(subset=["mean_confidence", "share_real"]).copy()
+    frame["bin"] = [f"{lo:.1f}-{hi:.1f}" for lo, hi in zip(frame["bin_low"], frame["bin_high"])]
+    diagonal = alt.Chart(_data(pd.DataFrame({"x": [0.0, 1.0], "y": [0.0, 1.0]}))).mark_line(
+        strokeDash=[4, 4], color="#888").encode(x="x:Q", y="y:Q")
+    axis = alt.Scale(domain=[0, 1])
+    points = (
+        alt.Chart(_data(frame[["bin", "moves", "mean_confidence", "share_real"]]))
+        .mark_line(point=True, color="#1f5f8b")
+        .encode(
+            x=alt.X("mean_confidence:Q", scale=axis, title="Confidence given to moves"),
+            y=alt.Y("share_real:Q", scale=axis, title="Share of those moves that are real"),
+            size=alt.Size("moves:Q", title="Moves", legend=None),
+            tooltip=[alt.Tooltip("bin:N", title="Confidence bin"), alt.Tooltip("moves:Q", title="Moves"),
+                     alt.Tooltip("mean_confidence:Q", title="Mean confidence", format=".2f"),
+                     alt.Tooltip("share_real:Q", title="Share real", format=".2f")],
+        )
+    )
+    return alt.layer(diagonal, points).properties(width=260, height=260, title="Is move confidence a probability?")
+
+
 CHARTS: dict[str, Callable[..., alt.TopLevelMixin]] = {
     "flow": flow_chart,
     "matrix": matrix_chart,
@@ -849,6 +881,7 @@ CHARTS: dict[str, Callable[..., alt.TopLevelMixin]] = {
     "block-density": block_density_chart,
     "fit": fit_chart,
     "structure": structure_chart,
+    "calibration": calibration_chart,
 }
 
 #: Chart name -> the names of the tables its function takes, in order.
@@ -861,6 +894,7 @@ CHART_INPUTS: dict[str, tuple[str, ...]] = {
     "block-density": ("blocks",),
     "fit": ("diagnostics", "permutation"),
     "structure": ("structures",),
+    "calibration": ("calibration",),
 }
 
 _NAMED_TRACKS = {"flow", "matrix", "trajectory", "timeline", "block-density"}

@@ -64,7 +64,7 @@ _METHOD_KEYS = (
     ("created", "Created"),
 )
 _NOT_IN_METHOD = {"study", "study_name", "name", "counts", "relations", "structure_sentences",
-                  "low_confidence"}
+                  "low_confidence", "calibration"}
 
 _CSP = (
     "default-src 'none'; script-src 'unsafe-inline' 'unsafe-eval'; "
@@ -391,6 +391,8 @@ def _chart_specs(
          "ties) where the same method fits at least as well; below the dashed line (0.05) the "
          "positions are unlikely to be chance.",
          ("diagnostics", "permutation")),
+        ("chart-calibration", "calibration", {}, "Is move confidence a probability?",
+         _calibration_sentence(meta.get("calibration")), ("calibration",)),
     ]
     out = []
     for chart_id, name, options, title, caption, needs in plan:
@@ -402,6 +404,22 @@ def _chart_specs(
         spec.pop("$schema", None)
         out.append((chart_id, title, caption, spec))
     return out
+
+
+def _calibration_sentence(check) -> str:
+    """A plain sentence on the latest calibration check (or nothing to say)."""
+    if not isinstance(check, Mapping):
+        return ""
+    ece = check.get("ece")
+    text = (f"Studies like this one were simulated {check.get('studies')} times from the fitted positions, "
+            "refitted the same way, and their moves, whose truth is known, were scored. Each point is a "
+            "group of moves: across, the confidence they were given; up, how many of them were real. "
+            "On the dashed line, a confidence of 0.7 means 7 such moves in 10 are real.")
+    if ece is not None:
+        text += (f" The average gap (expected calibration error) is {ece:.2f}"
+                 + (": the confidence can be read as a probability." if ece <= 0.05 else
+                    ": read the confidence as a rough guide, not an exact probability."))
+    return text
 
 
 @functools.lru_cache(maxsize=2)

@@ -20,6 +20,7 @@ Tables (see DEVELOPERS.md for the full description):
 from __future__ import annotations
 
 from datetime import datetime
+from typing import Optional
 
 from sqlalchemy import (
     Boolean,
@@ -170,7 +171,7 @@ class Membership(Base):
     actor_id: Mapped[int] = mapped_column(ForeignKey("actors.id", ondelete="CASCADE"), primary_key=True)
     position: Mapped[int] = mapped_column(Integer)  # 1-based
     isolate: Mapped[bool] = mapped_column(Boolean)
-    confidence: Mapped[float | None] = mapped_column(Float)  # posterior or bootstrap share, when known
+    confidence: Mapped[float | None] = mapped_column(Float)  # posterior probability of the position, when known
 
 
 class Block(Base):
@@ -203,6 +204,20 @@ class AlignmentRow(Base):
     fit_id: Mapped[int] = mapped_column(ForeignKey("fits.id", ondelete="CASCADE"), primary_key=True)
     params: Mapped[str] = mapped_column(Text)
     aligned_at: Mapped[datetime] = mapped_column(DateTime)
+
+
+class Calibration(Base):
+    """A calibration check of a fit's move confidence (reliability bins and ECE as JSON)."""
+
+    __tablename__ = "calibrations"
+    __table_args__ = (Index("ix_calibrations_fit", "fit_id"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=True)
+    fit_id: Mapped[int] = mapped_column(ForeignKey("fits.id", ondelete="CASCADE"))
+    studies: Mapped[int] = mapped_column(Integer)
+    ece: Mapped[Optional[float]] = mapped_column(Float, nullable=True)
+    result: Mapped[str] = mapped_column(Text)
+    checked_at: Mapped[datetime] = mapped_column(DateTime)
 
 
 class Track(Base):

@@ -14,6 +14,7 @@ objects; no SQL escapes the store.
 from __future__ import annotations
 
 from tracker.store._sql import ImportReport
+from tracker.store.calibrations import CalibrationStore
 from tracker.store.events import EventStore
 from tracker.store.fits import FitStore
 from tracker.store.history import HistoryStore
@@ -22,7 +23,7 @@ from tracker.store.tracks import TrackStore
 __all__ = ["Store", "ImportReport"]
 
 
-class Store(EventStore, FitStore, TrackStore, HistoryStore):
+class Store(EventStore, FitStore, TrackStore, HistoryStore, CalibrationStore):
     """A study database.
 
     Parameters

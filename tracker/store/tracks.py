@@ -100,7 +100,7 @@ class TrackStore(StoreBase):
         ])
 
     def save_moves(self, fit_id: int, moves: pd.DataFrame) -> None:
-        """Replace a fit's moves (e.g. with bootstrap confidences added)."""
+        """Replace a fit's moves (e.g. with confidences added)."""
         with self._write() as conn:
             self._write_moves(conn, fit_id, moves)
 

@@ -1,0 +1,48 @@
+"""roletrail calibration through the CLI, reading the stored check back."""
+
+from __future__ import annotations
+
+from click.testing import CliRunner
+
+from tests.helpers.planted_study import planted_events
+from tracker.api import Study
+from tracker.cli import main
+
+
+def _run(db, *args):
+    result = CliRunner().invoke(main, ["--db", str(db), *args], catch_exceptions=False)
+    assert result.exit_code == 0, result.output
+    return result.output
+
+
+def test_calibration_command_stores_reliability_bins_and_ece(tmp_path):
+    # Source: planted dynamic blockmodel (tests/helpers/planted.py); the stored check must hold
+    # 5 equal-width bins whose move counts add up to the moves checked, and an ECE in [0, 1]
+    # equal to its definition recomputed from those bins (Naeini et al. 2015).
+    csv = tmp_path / "events.csv"
+    planted_events(csv, n_actors=60, n_positions=3, n_periods=4, density_in=0.2, density_out=0.03, movers=6,
+                   seed=4)
+    db = tmp_path / "study.db"
+    _run(db, "import", str(csv), "--source", "source", "--target", "target", "--date", "date", "--undirected")
+    _run(db, "fit", "--positions", "3", "--draws", "0", "--smooth", "off")
+    _run(db, "align", "--draws", "2")
+    out = _run(db, "calibration", "--studies", "4", "--seed", "3")
+    assert "expected calibration error" in out
+    report = tmp_path / "report.html"
+    _run(db, "report", "-o", str(report), "--structure-draws", "0")
+    assert "chart-calibration" in report.read_text(encoding="utf-8")
+    with Study(db) as study:
+        stored = study.latest_calibration()
+    assert stored["studies"] == 4
+    bins = stored["bins"]
+    assert len(bins) == 5 and sum(b["moves"] for b in bins) == stored["moves"]
+    if stored["moves"]:
+        ece = sum(b["moves"] / stored["moves"] * abs(b["share_real"] - b["mean_confidence"])
+                  for b in bins if b["moves"])
+        assert abs(ece - stored["ece"]) < 1e-3 and 0 <= stored["ece"] <= 1
+
+
+def test_calibration_refuses_too_few_studies(tmp_path):
+    db = tmp_path / "study.db"
+    result = CliRunner().invoke(main, ["--db", str(db), "calibration", "--studies", "1"])
+    assert result.exit_code != 0
