@@ -1,15 +1,15 @@
 """Calibration checks of move confidence: one row per check run on a fit.
 
-Revision ID: 0009
-Revises: 0003
+Revision ID: 0005
+Revises: 0004
 Create Date: 2026-12-02
 """
 
 import sqlalchemy as sa
 from alembic import op
 
-revision = "0009"
-down_revision = "0003"
+revision = "0005"
+down_revision = "0004"
 branch_labels = None
 depends_on = None
 
