@@ -11,7 +11,7 @@ from click.testing import CliRunner
 from tests.report.report_data import make_tables
 from tracker.cli import main
 from tracker.glossary import GLOSSARY, as_text, lookup, suggest, terms
-from tracker.longitudinal.smoothing import default_change_penalty
+from tracker.longitudinal.smoothing import DEFAULT_PENALTY
 from tracker.report.html import build_report
 
 # The terms the analyst asked about, each with an author its entry must name
@@ -84,9 +84,9 @@ def test_explain_alone_lists_every_term():
 
 
 def test_stated_numbers_match_the_code():
-    # The smoothing entry quotes the default change penalty for three positions.
-    quoted = float(re.search(r"about ([\d.]+) nats for B = 3", GLOSSARY["smoothing"].formula).group(1))
-    assert quoted == round(default_change_penalty(3), 1)
+    # The smoothing entry quotes the default relative change penalty.
+    quoted = float(re.search(r"auto: c = ([\d.]+)", GLOSSARY["smoothing"].formula).group(1))
+    assert quoted == DEFAULT_PENALTY
 
 
 def test_text_is_wrapped_to_the_width():

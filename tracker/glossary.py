@@ -162,8 +162,10 @@ _ENTRIES = (
         "roletrail checks this by simulating studies from the fitted model, where the real moves are known, "
         "and comparing the stated confidence with the share of moves that are real. Moves below 0.5 are "
         "flagged: they are more likely noise than not.",
-        "confidence = P(actor in track f at period s and in track g at period t | data), from the model's "
-        "posterior (joint statistical fit) or from refits of resampled data; calibration error "
+        "confidence = P(actor's position at period s differs from its position at period t | data): for the "
+        "dynamic model from the chain's pairwise posterior; for the descriptive methods learned on studies "
+        "simulated from the fit (parametric bootstrap) and refitted the same way, where the real moves are "
+        "known (a calibration map by isotonic regression); calibration error "
         "ECE = Σ over bins of (moves in bin / all moves) · |mean confidence − share real|.",
         ("Efron, B. (1979). Bootstrap methods: another look at the jackknife. Annals of Statistics 7, 1-26",
          _MM,
@@ -192,11 +194,14 @@ _ENTRIES = (
         "position from one period to the next. In sparse data an actor's few ties in one year can point "
         "anywhere, so fitting each year alone turns noise into false moves. With smoothing, a one-year blip "
         "has to pay the penalty twice (out and back) while a lasting move pays once and is then supported by "
-        "every later year. --smooth sets the penalty: auto (the default), off (each period alone) or a number "
-        "in nats (natural-log units of likelihood; 1 nat is a likelihood ratio of e ≈ 2.7).",
-        "choose the positions z_1 … z_T that maximise Σ_t fit_t(z_t) − c · Σ_t #{actors i with "
-        "z_t(i) ≠ z_t−1(i)}, where c is the change penalty. auto: c = log(η (B − 1) / (1 − η)) with η = 0.9, "
-        "the chance that an actor keeps its position (about 2.9 nats for B = 3 positions).",
+        "every later year. For the descriptive methods (structural, CONCOR, optimize) the penalty is added to "
+        "the method's own objective; --smooth sets it: auto (the default, 0.5), off (each period alone) or a "
+        "number, in units of the method's own per-actor objective, so that 1 means one change costs as much "
+        "as an average actor's misfit. The dynamic model (the default method) needs no penalty: its Markov "
+        "chain gives every actor a probability of keeping its position from one period to the next.",
+        "descriptive methods, period by period in time order: choose z_t minimising objective_t(z_t) + "
+        "c · s_t · #{actors i with z_t(i) ≠ z_t−1(i)}, where s_t is the method's per-actor objective of the "
+        "unsmoothed fit and c the relative penalty (auto: c = 0.5); c = 0 gives exactly the unsmoothed fit.",
         (_CKT, _MM),
         also=("smooth", "evolutionary clustering", "change penalty", "penalty", "nats"),
         see=("move", "confidence", "track"),
