@@ -256,7 +256,7 @@ def _ties(conn) -> list[Problem]:
     key = ["period_id", "relation_id", "source_id", "target_id"]
     expected = _frame(
         conn.execute(
-            select(Event.period_id, Event.relation_id, src, dst, func.sum(Event.weight), func.count())
+            select(Event.period_id, Event.relation_id, src, dst, func.sum(Event.weight), func.sum(Event.n_events))
             .join(RelationRow, RelationRow.id == Event.relation_id)
             .where(Event.source_id != Event.target_id)
             .group_by(Event.period_id, Event.relation_id, src, dst)
