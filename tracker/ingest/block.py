@@ -139,9 +139,10 @@ def _labels(table: pa.Table, column: str, checks: _Checks, what: str) -> tuple[n
     # A NUL character is a sign of a damaged or binary file.
     check(stripped.str.contains("\x00", regex=False).to_numpy(dtype=bool),
           f"has a NUL character in the {what} label (a damaged or binary file?)", "remove it, or export the data again as CSV text")
-    check((stripped.str.len() > MAX_LABEL).to_numpy(),
+    names = normalise_names(raw)
+    check((names.str.len() > MAX_LABEL).to_numpy(),
           f"has {'an' if what[0] in 'aeiou' else 'a'} {what} label longer than {MAX_LABEL} characters", "shorten the label")
-    return codes, normalise_names(raw)
+    return codes, names
 
 
 def _weights(table: pa.Table, column: str, checks: _Checks) -> np.ndarray:

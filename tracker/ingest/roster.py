@@ -41,6 +41,7 @@ def validate_roster(
     _first_bad(labels.str.len() > MAX_LABEL, labels, file, actor, f"has an actor label longer than {MAX_LABEL} characters", "shorten the label")
     _no_nul(labels, file, actor, "actor")
     labels = normalise_names(labels)
+    _first_bad(labels.str.len() > MAX_LABEL, labels, file, actor, f"has an actor label longer than {MAX_LABEL} characters", "shorten the label")
     dup = labels.duplicated().to_numpy()
     _first_bad(dup, labels, file, actor, "names an actor a second time", "keep one row per actor")
     out = pd.DataFrame({"row": frame.index.to_numpy(), "actor": labels.to_numpy(dtype=object)})
