@@ -77,7 +77,8 @@ class EventStore(StoreBase):
         dates compared after parsing), is counted; ``drop_duplicates`` leaves
         those rows out.
         """
-        with self._write() as conn:
+        # bulk: ids all come from this transaction, so foreign keys are not checked row by row
+        with self._write(bulk=True) as conn:
             self._check_scheme(conn, scheme)
             earlier = self._earlier_batches(conn, "events", content_hash, file_name, replace)
             touched_old: set[int] = set()
@@ -217,7 +218,8 @@ class EventStore(StoreBase):
         ordered = sorted(periods)
         for start in range(0, len(ordered), _IN_CHUNK):  # ties left by a replaced batch
             conn.execute(delete(Tie).where(Tie.period_id.in_(ordered[start : start + _IN_CHUNK])))
-        ties = ties[ties["value"] > 0]
+        # in primary-key order: the B-tree grows at its right edge instead of splitting pages all over
+        ties = ties[ties["value"] > 0].sort_values(key)
         self._bulk_insert(conn, "ties", [*key, "value", "n_events"], [ties[c].tolist() for c in [*key, "value", "n_events"]])
         return periods
 
@@ -674,7 +676,7 @@ class _Duplicates:
 
     def __init__(self, store: "EventStore", conn, with_events: set[int]) -> None:
         self.store, self.conn, self.with_events = store, conn, with_events
-        self.seen = np.empty(0, dtype=np.uint64)
+        self.seen: list[np.ndarray] = []
         self.study: dict[int, np.ndarray] = {}
         self.dates: dict = {}
 
@@ -687,8 +689,10 @@ class _Duplicates:
     def find(self, rows: pd.DataFrame, dates: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         keyed = rows.assign(date=self._date_keys(dates)[rows["date"].to_numpy()])
         hashes = self._hash(keyed)
-        in_file = pd.Series(hashes).duplicated().to_numpy() | np.isin(hashes, self.seen)
-        self.seen = np.union1d(self.seen, hashes)
+        in_file = pd.Series(hashes).duplicated().to_numpy()
+        if self.seen:
+            in_file |= np.isin(hashes, np.concatenate(self.seen))
+        self.seen.append(hashes)
         old = rows["period_id"].isin(self.with_events).to_numpy()
         in_study = np.zeros(len(rows), dtype=bool)
         if old.any():
