@@ -168,6 +168,24 @@ class Study:
         report["errors_file"] = None if errors_file is None else str(errors_file)
         return report
 
+    def _import_many(self, path, mapping: EventMapping, scheme: PeriodScheme, *, replace: bool, progress,
+                     drop_duplicates: bool, memory_limit: str, errors_file) -> ImportReport:
+        """A folder or glob of files, aggregated per pair, relation and period with DuckDB (see :meth:`import_events`)."""
+        from tracker.ingest.folder import aggregate_files, files_hash, list_files
+
+        if errors_file is not None or drop_duplicates:
+            raise UsageError("--errors report and --duplicates drop work on one file; a folder is imported whole "
+                             "(import its files one by one to use them)")
+        files = list_files(path)
+        blocks = aggregate_files(files, mapping, scheme, delimiter=mapping.delimiter, memory_limit=memory_limit)
+        report = self.store.import_events(
+            file_name=str(path), content_hash=files_hash(files), mapping={**mapping.as_dict(), "files": len(files), "aggregated": True},
+            scheme=scheme, directed=not mapping.undirected, blocks=blocks, replace=replace,
+        )
+        report["files"] = len(files)
+        report["errors_file"] = None
+        return report
+
     def import_actors(
         self,
         path: str | os.PathLike,

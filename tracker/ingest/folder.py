@@ -79,6 +79,11 @@ def _quote(name: str) -> str:
     return '"' + name.replace('"', '""') + '"'
 
 
+def _literal(text: str) -> str:
+    """A SQL string literal (file names and the delimiter are not user SQL)."""
+    return "'" + str(text).replace("'", "''") + "'"
+
+
 def _text(values) -> pa.Table:
     return pa.table({"x": pa.array(pd.Series(values, dtype=object).fillna("").astype(str).tolist(), type=pa.string())})
 
@@ -107,17 +112,16 @@ def aggregate_files(
                                      "preserve_insertion_order": False, **({"threads": threads} if threads else {})})
         try:
             names = [str(p) for p in files]
+            listed = "[" + ", ".join(_literal(n) for n in names) + "]"
             if first.kind == "csv":
-                cols = ", ".join(f"{_quote(c)}: 'VARCHAR'" for c in first.columns)
-                source = (f"read_csv($files, header=true, delim=$delim, quote='\"', escape='\"', columns={{{cols}}}, "
-                          "filename=true, strict_mode=true, null_padding=false, auto_detect=false)")
-                params = {"files": names, "delim": first.delimiter or ","}
+                cols = ", ".join(f"{_literal(c)}: 'VARCHAR'" for c in first.columns)
+                source = (f"read_csv({listed}, header=true, delim={_literal(first.delimiter or ',')}, quote='\"', escape='\"', "
+                          f"columns={{{cols}}}, filename=true, strict_mode=true, null_padding=false, auto_detect=false)")
             else:
-                source = "read_parquet($files, filename=true, union_by_name=true)"
-                params = {"files": names}
+                source = f"read_parquet({listed}, filename=true, union_by_name=true)"
             select = ", ".join(f"coalesce(CAST({_quote(c)} AS VARCHAR), '') AS {_quote(c)}" for c in wanted.values())
             try:
-                con.execute(f"CREATE TEMP VIEW raw AS SELECT {select}, filename FROM {source}", params)
+                con.execute(f"CREATE TEMP VIEW raw AS SELECT {select}, filename FROM {source}")
                 yield from _aggregate(con, files, first, mapping, scheme)
             except duckdb.Error as exc:
                 detail = str(exc).strip().splitlines()[0][:200]
@@ -182,12 +186,12 @@ def _aggregate(con, files, first, mapping: EventMapping, scheme: PeriodScheme) -
     con.register("period_map", pd.DataFrame({"raw": dates.to_numpy(dtype=object), "period": period_of}))
     table = periods.drop_duplicates("label").reset_index(drop=True)
     # -- one pass over the events: sum per pair, relation and period
-    result = con.execute(
+    result = con.sql(
         f"SELECT a.norm AS s, b.norm AS t, {rel_expr} AS r, p.period AS period, sum({weight_expr}) AS weight, count(*) AS n "
         f"FROM raw JOIN actor_map a ON raw.{q(mapping.source)} = a.raw JOIN actor_map b ON raw.{q(mapping.target)} = b.raw "
         f"{rel_join} JOIN period_map p ON {key} = p.raw GROUP BY ALL"
     )
-    reader = result.fetch_record_batch(FETCH_ROWS)
+    reader = result.to_arrow_reader(FETCH_ROWS) if hasattr(result, "to_arrow_reader") else result.record_batch(FETCH_ROWS)
     for batch in reader:
         frame = batch.to_pandas()
         if frame.empty:

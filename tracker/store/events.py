@@ -111,7 +111,7 @@ class EventStore(StoreBase):
             for block in blocks:
                 tally["self_ties"] += block.self_ties
                 tally["rejected"] += len(block.rejected)
-                tally["read"] += len(block) + block.self_ties + len(block.rejected)
+                tally["read"] += block.events + block.self_ties + len(block.rejected)
                 if not len(block):
                     continue
                 actor_ids = self._actor_ids(conn, aliases, block.actors)
@@ -125,7 +125,10 @@ class EventStore(StoreBase):
                     "relation_id": rel_ids[block.relation], "period_id": period_ids[block.period],
                     "date": block.date, "weight": block.weight,
                 })
-                in_file, in_study = dedup.find(rows, block.dates)
+                if block.n_events is None:
+                    in_file, in_study = dedup.find(rows, block.dates)
+                else:  # aggregated rows: one per pair and period already
+                    in_file = in_study = np.zeros(len(rows), dtype=bool)
                 tally["in_file"] += int(in_file.sum())
                 tally["in_study"] += int(in_study.sum())
                 keep = ~(in_file | in_study) if drop_duplicates else np.ones(len(rows), dtype=bool)
@@ -618,6 +621,9 @@ class EventStore(StoreBase):
                 raise UsageError("this study has no events yet; import data first")
             if not current.dated:
                 raise UsageError("this study's periods come from a column, so its events have no dates to re-cut")
+            if conn.execute(select(Event.id).where(Event.occurred.is_(None)).limit(1)).first() is not None:
+                raise UsageError("some batches were imported from a folder, summed per period without dates, so they "
+                                 "cannot be re-cut; import those files again with the new --period instead")
             events = pd.DataFrame(conn.execute(select(Event.id, Event.occurred)).all(), columns=["id", "occurred"])
             dates, year_only, bad = parse_dates(events["occurred"])
             periods = scheme.assign(dates, year_only)
