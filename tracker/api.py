@@ -244,6 +244,30 @@ class Study:
         """Actors with roster range, attributes and aliases."""
         return self.store.actors().drop(columns=["id"])
 
+    def similar_actors(self, *, max_edits: int = 1, min_length: int = 5) -> pd.DataFrame:
+        """Likely duplicate actors (case, punctuation, small misspellings; see :func:`tracker.names.similar_names`).
+
+        Columns ``name, other, reason, edits, events_name, events_other,
+        command``: ``command`` is the suggested ``roletrail alias`` call that
+        makes the actor with fewer events another name of the one with more.
+        """
+        import shlex
+
+        from tracker.names import similar_names
+
+        actors = self.store.actors()
+        pairs = similar_names(actors["actor"], max_edits=max_edits, min_length=min_length)
+        counts = self.store.actor_event_counts()
+        ids = dict(zip(actors["actor"], actors["id"]))
+        pairs["events_name"] = [int(counts.get(ids[x], 0)) for x in pairs["name"]]
+        pairs["events_other"] = [int(counts.get(ids[x], 0)) for x in pairs["other"]]
+        keep_other = pairs["events_other"] > pairs["events_name"]
+        pairs["command"] = [
+            f"roletrail alias {shlex.quote(a if flip else b)} {shlex.quote(b if flip else a)}"
+            for a, b, flip in zip(pairs["name"], pairs["other"], keep_other)
+        ]
+        return pairs
+
     def check(self, *, repair: bool = False, all_fits: bool = False) -> list:
         """Verify the study: integrity, orphans, ties against raw events, fits against memberships and blocks.
 
@@ -257,7 +281,7 @@ class Study:
         return check_study(self.engine, max_fit_periods=None if all_fits else 50)
 
     def batches(self) -> pd.DataFrame:
-        """Imported files: batch id, kind, file, rows read and loaded, self-ties dropped, time, hash."""
+        """Imported files: batch id, kind, file, rows read and loaded, self-ties dropped, duplicates, bad rows skipped, time, hash."""
         return self.store.batches()
 
     # ------------------------------------------------------------------ fit

@@ -88,7 +88,7 @@ def normalise_names(values: pd.Series) -> pd.Series:
 
 
 class _Checks:
-    """Bad-row bookkeeping: raise at the first bad row, or collect every bad row."""
+    """Bad-row bookkeeping: raise for the first bad row of the table (after every check), or collect every bad row."""
 
     def __init__(self, rows: np.ndarray, file: str, collect: bool) -> None:
         self.rows = rows
@@ -96,6 +96,11 @@ class _Checks:
         self.collect = collect
         self.bad = np.zeros(len(rows), dtype=bool)
         self.rejected: list[Rejected] = []
+        self.first: InputError | None = None  # strict mode: the bad row that comes first in the file
+
+    def raise_first(self) -> None:
+        if self.first is not None:
+            raise self.first
 
     def flag(self, mask: np.ndarray, shown, column: str, problem: str, fix: str) -> None:
         """Rows where ``mask`` holds are bad; ``shown(i)`` is the value at row position i."""
@@ -104,7 +109,9 @@ class _Checks:
             return
         if not self.collect:
             at = int(np.argmax(mask))
-            raise InputError(problem, file=self.file, row=int(self.rows[at]), column=column, value=shown(at), fix=fix)
+            if self.first is None or self.rows[at] < self.first.row:
+                self.first = InputError(problem, file=self.file, row=int(self.rows[at]), column=column, value=shown(at), fix=fix)
+            return
         for at in np.flatnonzero(mask).tolist():
             self.rejected.append(Rejected(int(self.rows[at]), column, str(shown(at)), problem, fix))
         self.bad |= mask
@@ -263,6 +270,7 @@ def validate_block(table: pa.Table, first_row, mapping: EventMapping, scheme: Pe
         date_codes, periods, occurred = _column_periods(table, mapping.period_column, checks)
     period, labels = pd.factorize(periods["label"])
     periods = periods.iloc[pd.Series(range(len(period))).groupby(period).first().to_numpy()].reset_index(drop=True)
+    checks.raise_first()
     source, target, actors = _merge_codes(src_names, dst_names, src_codes, dst_codes)
     keep = ~checks.bad
     self_tie = (source == target) & keep

@@ -223,7 +223,9 @@ def _checked(con, files, first, values: pd.Series, what: str, columns: list[str]
     """Run a column check of :mod:`tracker.ingest.block` on distinct values; place the first bad one in its file."""
     checks = _Checks(np.arange(len(values), dtype=np.int64), first.name, collect=False)
     try:
-        return check(_text(values), checks)
+        found = check(_text(values), checks)
+        checks.raise_first()
+        return found
     except InputError as exc:
         value = values.iloc[int(exc.row)]
         for column in columns:

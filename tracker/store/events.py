@@ -416,9 +416,11 @@ class EventStore(StoreBase):
         with self.engine.connect() as conn:
             rows = conn.execute(
                 select(Batch.id, Batch.kind, Batch.file_name, Batch.rows_read, Batch.rows_loaded,
-                       Batch.self_ties_dropped, Batch.imported_at, Batch.content_hash).order_by(Batch.id)
+                       Batch.self_ties_dropped, Batch.duplicates, Batch.rows_rejected, Batch.imported_at,
+                       Batch.content_hash).order_by(Batch.id)
             ).all()
-        return pd.DataFrame(rows, columns=["batch", "kind", "file", "rows_read", "rows_loaded", "self_ties_dropped", "imported_at", "sha256"])
+        return pd.DataFrame(rows, columns=["batch", "kind", "file", "rows_read", "rows_loaded", "self_ties_dropped",
+                                           "duplicates", "rows_rejected", "imported_at", "sha256"])
 
     def counts(self) -> dict[str, int]:
         """Row counts of the main tables (for summaries and checks)."""
@@ -569,6 +571,15 @@ class EventStore(StoreBase):
         return frame
 
     # ------------------------------------------------------------------ actors
+    def actor_event_counts(self) -> dict[int, int]:
+        """Events each actor takes part in (as source or target), by actor id."""
+        with self.engine.connect() as conn:
+            counts: dict[int, int] = {}
+            for column in (Event.source_id, Event.target_id):
+                for aid, n in conn.execute(select(column, func.sum(Event.n_events)).group_by(column)):
+                    counts[aid] = counts.get(aid, 0) + int(n)
+        return counts
+
     def add_alias(self, alias: str, actor: str) -> dict:
         """Make ``alias`` another name of ``actor``.
 
@@ -576,7 +587,9 @@ class EventStore(StoreBase):
         earlier, or an organisation that was merged), its events, roster
         entry and aliases move to ``actor`` and the ties are rebuilt.
         """
-        alias, actor = alias.strip(), actor.strip()
+        from tracker.ingest.block import normalise_names
+
+        alias, actor = normalise_names(pd.Series([alias, actor])).tolist()
         if not alias or not actor or alias == actor:
             raise UsageError("give two different, non-empty names: roletrail alias OTHER-NAME ACTOR")
         with self._write() as conn:
