@@ -710,7 +710,7 @@ class _Duplicates:
         hashes = self._hash(keyed)
         in_file = pd.Series(hashes).duplicated().to_numpy()
         if self.seen:
-            in_file |= np.isin(hashes, np.concatenate(self.seen))
+            in_file = in_file | np.isin(hashes, np.concatenate(self.seen))
         self.seen.append(hashes)
         old = rows["period_id"].isin(self.with_events).to_numpy()
         in_study = np.zeros(len(rows), dtype=bool)
