@@ -123,6 +123,9 @@ def aggregate_files(
             try:
                 con.execute(f"CREATE TEMP VIEW raw AS SELECT {select}, filename FROM {source}")
                 yield from _aggregate(con, files, first, mapping, scheme)
+            except duckdb.OutOfMemoryException:
+                raise InputError(f"needed more memory than --memory-limit {memory_limit} to sum",
+                                 file=str(Path(names[0]).parent), fix="raise --memory-limit (e.g. 2GB), or import the files in smaller groups") from None
             except duckdb.Error as exc:
                 detail = str(exc).strip().splitlines()[0][:200]
                 raise InputError(f"cannot be read as one table ({detail})", file=str(Path(names[0]).parent),
