@@ -20,8 +20,8 @@ from typing import Callable, Sequence
 import numpy as np
 import pandas as pd
 
-from tracker.errors import UsageError
-from tracker.ingest.events import EventMapping, validate_events
+from tracker.errors import InputError, UsageError
+from tracker.ingest.events import EventMapping
 from tracker.ingest.periods import PeriodScheme, parse_scheme
 from tracker.ingest.reader import file_hash, open_table
 from tracker.ingest.roster import validate_roster
@@ -115,21 +115,44 @@ class Study:
         relation_name: str | None = None,
         weight: str | None = None,
         undirected: bool = False,
-        date_format: str | None = None,
+        date_format: str | Sequence[str] | None = None,
         delimiter: str | None = None,
         replace: bool = False,
         progress: Progress | None = None,
+        errors_file: str | os.PathLike | None = None,
+        drop_duplicates: bool = False,
+        memory_limit: str = "1GB",
     ) -> ImportReport:
-        """Import a file of dyadic events (CSV or Parquet) as one batch.
+        """Import a file of dyadic events (CSV, Parquet or Excel .xlsx) as one batch.
 
         One row per event: source, target, a date (cut into periods by
         ``period``: ``year``, ``quarter``, ``month`` or ``Ny``) or a period
         label (``period_column``), a relation (column or fixed name) and an
-        optional weight.  The import is one transaction: on any error nothing
-        is written.  Self-ties are dropped and counted.  Importing the same
-        content twice is refused unless ``replace`` (which swaps the earlier
-        batch, or the latest batch of the same file name, atomically).
+        optional weight.  ``date_format`` may list several formats, tried in
+        turn (``iso`` stands for ISO dates and bare years).  Names are
+        normalised (NFC, trimmed, inner whitespace collapsed).
+
+        The import is one transaction: on any error nothing is written, and
+        the error names the file, the editor line (header = line 1), the
+        column, the value and the fix.  With ``errors_file`` every bad row is
+        written there (line, column, value, problem, fix) and the other rows
+        are imported.  Self-ties are dropped and counted; rows repeating an
+        earlier row or an event already in the study are counted
+        (``duplicates_in_file``, ``duplicates_in_study``) and left out with
+        ``drop_duplicates``.  Importing the same content twice is refused
+        unless ``replace`` (which swaps the earlier batch, or the latest batch
+        of the same file name, atomically).
+
+        ``path`` may also be a folder or a glob pattern of CSV or Parquet
+        files: they are aggregated to one row per pair, relation and period
+        with DuckDB in bounded memory (``memory_limit``) before the store sees
+        them (see :func:`tracker.ingest.folder.aggregate_files`).
         """
+        from tracker.ingest.columns import ArrowFallback, place_error
+        from tracker.ingest.load import event_blocks, write_rejected
+
+        if date_format is not None and not isinstance(date_format, str):
+            date_format = tuple(date_format) or None
         mapping = EventMapping(
             source=source, target=target, date=date, period_column=period_column,
             period=period, period_origin=period_origin, relation=relation,
@@ -137,20 +160,56 @@ class Study:
             date_format=date_format, delimiter=delimiter,
         )
         scheme = PeriodScheme("column") if period_column else parse_scheme(period, period_origin)
+        from tracker.ingest.folder import is_many
+
+        if is_many(path):
+            return self._import_many(path, mapping, scheme, replace=replace, progress=progress,
+                                     drop_duplicates=drop_duplicates, memory_limit=memory_limit,
+                                     errors_file=errors_file)
         table = open_table(path, delimiter=delimiter)
         table.require(mapping.columns())
         digest = file_hash(table.path)
+        rejected: list = []
+        collect = rejected if errors_file is not None else None
 
-        def chunks():
-            for _, frame in table.chunks():
-                yield validate_events(frame, mapping, scheme, table.name)
-                if progress is not None:
-                    progress(table.bytes_read, table.size)
+        def load(arrow: bool) -> ImportReport:
+            rejected.clear()
+            blocks = event_blocks(table, mapping, scheme, arrow=arrow, collect=collect, progress=progress)
+            return self.store.import_events(
+                file_name=table.name, content_hash=digest, mapping=mapping.as_dict(), scheme=scheme,
+                directed=not undirected, blocks=blocks, replace=replace, drop_duplicates=drop_duplicates,
+            )
 
-        return self.store.import_events(
-            file_name=table.name, content_hash=digest, mapping=mapping.as_dict(), scheme=scheme,
-            directed=not undirected, chunks=chunks(), replace=replace,
+        try:
+            try:
+                report = load(arrow=True)
+            except ArrowFallback:
+                report = load(arrow=False)
+        except InputError as exc:
+            raise place_error(table, exc) from None
+        finally:
+            if errors_file is not None:
+                write_rejected(errors_file, table, rejected)
+        report["errors_file"] = None if errors_file is None else str(errors_file)
+        return report
+
+    def _import_many(self, path, mapping: EventMapping, scheme: PeriodScheme, *, replace: bool, progress,
+                     drop_duplicates: bool, memory_limit: str, errors_file) -> ImportReport:
+        """A folder or glob of files, aggregated per pair, relation and period with DuckDB (see :meth:`import_events`)."""
+        from tracker.ingest.folder import aggregate_files, files_hash, list_files
+
+        if errors_file is not None or drop_duplicates:
+            raise UsageError("--errors report and --duplicates drop work on one file; a folder is imported whole "
+                             "(import its files one by one to use them)")
+        files = list_files(path)
+        blocks = aggregate_files(files, mapping, scheme, delimiter=mapping.delimiter, memory_limit=memory_limit)
+        report = self.store.import_events(
+            file_name=str(path), content_hash=files_hash(files), mapping={**mapping.as_dict(), "files": len(files), "aggregated": True},
+            scheme=scheme, directed=not mapping.undirected, blocks=blocks, replace=replace,
         )
+        report["files"] = len(files)
+        report["errors_file"] = None
+        return report
 
     def import_actors(
         self,
@@ -169,7 +228,12 @@ class Study:
         if not frames:
             raise UsageError(f"{table.name}: has a header but no data rows; nothing was imported")
         frame = pd.concat(frames)
-        roster = validate_roster(frame, actor=actor, first=first, last=last, scheme=self.store.period_scheme(), file=table.name)
+        from tracker.ingest.columns import place_error
+
+        try:
+            roster = validate_roster(frame, actor=actor, first=first, last=last, scheme=self.store.period_scheme(), file=table.name)
+        except InputError as exc:
+            raise place_error(table, exc) from None
         mapping = {"actor": actor, "first": first, "last": last, "delimiter": delimiter}
         return self.store.import_roster(
             file_name=table.name, content_hash=file_hash(table.path), mapping=mapping, roster=roster, replace=replace
@@ -244,6 +308,30 @@ class Study:
         """Actors with roster range, attributes and aliases."""
         return self.store.actors().drop(columns=["id"])
 
+    def similar_actors(self, *, max_edits: int = 1, min_length: int = 5) -> pd.DataFrame:
+        """Likely duplicate actors (case, punctuation, small misspellings; see :func:`tracker.names.similar_names`).
+
+        Columns ``name, other, reason, edits, events_name, events_other,
+        command``: ``command`` is the suggested ``roletrail alias`` call that
+        makes the actor with fewer events another name of the one with more.
+        """
+        import shlex
+
+        from tracker.names import similar_names
+
+        actors = self.store.actors()
+        pairs = similar_names(actors["actor"], max_edits=max_edits, min_length=min_length)
+        counts = self.store.actor_event_counts()
+        ids = dict(zip(actors["actor"], actors["id"]))
+        pairs["events_name"] = [int(counts.get(ids[x], 0)) for x in pairs["name"]]
+        pairs["events_other"] = [int(counts.get(ids[x], 0)) for x in pairs["other"]]
+        keep_other = pairs["events_other"] > pairs["events_name"]
+        pairs["command"] = [
+            f"roletrail alias {shlex.quote(a if flip else b)} {shlex.quote(b if flip else a)}"
+            for a, b, flip in zip(pairs["name"], pairs["other"], keep_other)
+        ]
+        return pairs
+
     def check(self, *, repair: bool = False, all_fits: bool = False) -> list:
         """Verify the study: integrity, orphans, ties against raw events, fits against memberships and blocks.
 
@@ -257,7 +345,7 @@ class Study:
         return check_study(self.engine, max_fit_periods=None if all_fits else 50)
 
     def batches(self) -> pd.DataFrame:
-        """Imported files: batch id, kind, file, rows read and loaded, self-ties dropped, time, hash."""
+        """Imported files: batch id, kind, file, rows read and loaded, self-ties dropped, duplicates, bad rows skipped, time, hash."""
         return self.store.batches()
 
     # ------------------------------------------------------------------ fit

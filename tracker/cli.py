@@ -179,7 +179,7 @@ def main(ctx: click.Context, db: str | None) -> None:
 
 
 @main.command("import")
-@click.argument("file", type=click.Path(dir_okay=False))
+@click.argument("file")
 @click.option("--source", required=True, help="Column naming the actor the event comes from (the sender).")
 @click.option("--target", required=True, help="Column naming the actor the event goes to (the receiver).")
 @click.option("--date", "date_col",
@@ -198,33 +198,78 @@ def main(ctx: click.Context, db: str | None) -> None:
 @click.option("--weight", help="Column with how much each event counts (its weight; default: every event counts 1).")
 @click.option("--undirected", is_flag=True,
               help="Ties have no direction: A with B is the same as B with A (an undirected relation).")
-@click.option("--date-format",
+@click.option("--date-format", multiple=True,
               help="How the dates are written when they are not ISO dates: a pattern such as %d/%m/%Y for 31/03/2019 "
-                   "(strftime format).")
+                   "(strftime format); repeat it to accept several, tried in turn ('iso' = ISO dates and bare years).")
 @click.option("--delimiter",
               help="Character that separates the columns of a CSV file (the delimiter; detected when left out); 'tab' "
                    "for tabs.")
 @click.option("--replace", is_flag=True,
               help="Replace an earlier import of the same content (or of the same file name) instead of refusing it.")
+@click.option("--errors", "errors", nargs=2, type=(click.Choice(["report"]), click.Path(dir_okay=False)), default=None,
+              metavar="report FILE",
+              help="Write every bad row (editor line, column, value, problem, fix) to FILE and import the others "
+                   "(default: stop at the first bad row and import nothing).")
+@click.option("--duplicates", type=click.Choice(["keep", "drop"]), default="keep", show_default=True,
+              help="Rows that repeat another row, or an event already in the study: keep them (and count them) or "
+                   "drop them.")
+@click.option("--memory-limit", default="1GB", show_default=True,
+              help="Memory for summing a folder of files (DuckDB; beyond it work spills to disk).")
 @computing(parallel=False)
 @click.pass_context
 def import_cmd(ctx, file, source, target, date_col, period, period_origin, period_column, relation_col,
-               relation_name, weight, undirected, date_format, delimiter, replace):
-    """Import events from a CSV or Parquet FILE: one row per dated interaction between two actors (dyadic events)."""
+               relation_name, weight, undirected, date_format, delimiter, replace, errors, duplicates, memory_limit):
+    """Import events from FILE: one row per dated interaction between two actors (dyadic events).
+
+    FILE is CSV, Parquet or Excel (.xlsx), or a folder or glob of CSV/Parquet files.
+    """
     study = _study(ctx, create=True)
     progress, update = _progress_bar(f"importing {os.path.basename(file)}")
     with progress:
         report = study.import_events(
             file, source=source, target=target, date=date_col, period=period, period_origin=period_origin,
             period_column=period_column, relation=relation_col, relation_name=relation_name, weight=weight,
-            undirected=undirected, date_format=date_format, delimiter=delimiter, replace=replace, progress=update,
+            undirected=undirected, date_format=date_format or None, delimiter=delimiter, replace=replace, progress=update,
+            errors_file=errors[1] if errors else None, drop_duplicates=duplicates == "drop", memory_limit=memory_limit,
         )
+    for line in _import_lines(report):
+        click.echo(line)
+    for line in _import_warnings(report, relation_col, relation_name):
+        click.echo(line, err=True)
+
+
+def _import_lines(report) -> list[str]:
     replaced = f", replacing batch {', '.join(map(str, report['replaced']))}" if report["replaced"] else ""
-    click.echo(
-        f"imported {report['file']} as batch {report['batch']}{replaced}: {report['rows_loaded']} events "
+    files = f" ({report['files']} files, summed per pair and period)" if report.get("files") else ""
+    lines = [
+        f"imported {report['file']}{files} as batch {report['batch']}{replaced}: {report['rows_loaded']} events "
         f"of {report['rows_read']} rows, {report['self_ties_dropped']} self-ties dropped, "
         f"{report['new_actors']} new actors, {report['periods']} periods updated"
-    )
+    ]
+    if report.get("rows_rejected") or report.get("errors_file"):
+        lines.append(f"{report['rows_rejected']} bad rows skipped, listed in {report['errors_file']}")
+    return lines
+
+
+def _import_warnings(report, relation_col, relation_name) -> list[str]:
+    lines = []
+    found = report.get("duplicates_in_file", 0) + report.get("duplicates_in_study", 0)
+    if found:
+        done = "dropped" if report.get("duplicates_dropped") else "kept (--duplicates drop leaves them out)"
+        lines.append(
+            f"warning: {report['duplicates_in_file']} rows repeat an earlier row of the file and "
+            f"{report['duplicates_in_study']} repeat an event already in the study (same actors, relation, date and weight); {done}"
+        )
+    if report.get("new_relations") and report.get("relations_before"):
+        new = ", ".join(repr(r) for r in report["new_relations"])
+        had = ", ".join(repr(r) for r in report["relations_before"])
+        hint = (" (the default when neither --relation nor --relation-name is given)"
+                if relation_col is None and relation_name is None else "")
+        lines.append(
+            f"warning: this import created the relation {new}{hint}; the study already has {had}. "
+            "If that was not meant, re-import with --replace and --relation-name NAME"
+        )
+    return lines
 
 
 @main.command("import-actors")
@@ -271,10 +316,18 @@ def summary(ctx, fmt, output):
 
 @main.command()
 @listing
+@click.option("--similar", is_flag=True, help="List likely duplicates (case, punctuation, one-letter misspellings) as suggested alias commands.")
+@click.option("--max-edits", default=1, show_default=True, type=click.IntRange(0, 5), help="With --similar: letters that may differ.")
 @click.pass_context
-def actors(ctx, fmt, output):
+def actors(ctx, fmt, output, similar, max_edits):
     """List actors with the periods they exist in (from the roster), their attributes and other names (aliases)."""
-    _emit(_study(ctx).actors(), fmt, output, title="Actors")
+    if not similar:
+        _emit(_study(ctx).actors(), fmt, output, title="Actors")
+        return
+    pairs = _study(ctx).similar_actors(max_edits=max_edits)
+    _emit(pairs, fmt, output, title="Likely duplicate actors")
+    if fmt == "table" and output is None:
+        click.echo(f"{len(pairs)} likely duplicates; run the alias commands you agree with (each merges two actors)")
 
 
 @main.command()

@@ -19,8 +19,10 @@ class RoletrailError(Exception):
 class InputError(RoletrailError):
     """A problem in an input file.
 
-    The message names the file, the data row (1 = first row after the header),
-    the column and the offending value, and ends with the fix.
+    The message names the file, the place of the row (``line``: the line an
+    editor or spreadsheet shows, the header being line 1; else ``row``: the
+    data row, 1 = first row after the header), the column and the offending
+    value, and ends with the fix.
     """
 
     def __init__(
@@ -32,8 +34,10 @@ class InputError(RoletrailError):
         column: str | None = None,
         value: object = None,
         fix: str | None = None,
+        line: int | None = None,
     ) -> None:
         self.problem = problem
+        self.line = line
         self.file = file
         self.row = row
         self.column = column
@@ -42,7 +46,9 @@ class InputError(RoletrailError):
         where = []
         if file is not None:
             where.append(str(file))
-        if row is not None:
+        if line is not None:
+            where.append(f"line {line}")
+        elif row is not None:
             where.append(f"row {row}")
         if column is not None:
             where.append(f"column {column!r}")

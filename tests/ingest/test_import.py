@@ -109,9 +109,9 @@ def test_replace_by_file_name_swaps_corrected_file(study, write_csv):
 @pytest.mark.parametrize(
     "rows, kw, message",
     [
-        ([("a", "b", "2019-13-45", "x")], {}, r"events\.csv, row 1, column 'date': is not a date .*'2019-13-45'"),
-        ([("a", "b", "2019", "x"), ("", "b", "2019", "x")], {}, r"row 2, column 'source': has no actor label"),
-        ([("a", "b", "2019", "-1")], {"weight": "kind", "relation": None}, r"row 1, column 'kind': is negative"),
+        ([("a", "b", "2019-13-45", "x")], {}, r"events\.csv, line 2, column 'date': is not a date .*'2019-13-45'"),
+        ([("a", "b", "2019", "x"), ("", "b", "2019", "x")], {}, r"line 3, column 'source': has no actor label"),
+        ([("a", "b", "2019", "-1")], {"weight": "kind", "relation": None}, r"line 2, column 'kind': is negative"),
         ([("a", "b", "2019", "nan")], {"weight": "kind", "relation": None}, r"column 'kind': is not a (finite )?number"),
         ([("a", "b", "2019", "inf")], {"weight": "kind", "relation": None}, r"is not a finite number"),
         ([("a", "b", "2019", "1e300")], {"weight": "kind", "relation": None}, r"is larger than"),
@@ -135,7 +135,7 @@ def test_error_in_a_late_chunk_rolls_back_the_whole_file(study, tmp_path, monkey
     lines = ["source,target,date,kind"] + [f"a{i},b{i},2019-01-01,x" for i in range(400)] + ["a,b,nope,x"]
     path.write_text("\n".join(lines) + "\n")
     before = table_dump(study)
-    with pytest.raises(InputError, match="row 401"):
+    with pytest.raises(InputError, match="line 402"):
         _import(study, path)
     assert table_dump(study) == before
 
@@ -169,7 +169,7 @@ def test_missing_file(study, tmp_path):
 def test_blank_lines_keep_row_numbers(study, tmp_path):
     path = tmp_path / "gaps.csv"
     path.write_text("source,target,date,kind\na,b,2019,x\n\nc,d,20x9,x\n")
-    with pytest.raises(InputError, match="row 3"):
+    with pytest.raises(InputError, match="line 4"):
         _import(study, path)
 
 
@@ -206,7 +206,7 @@ def test_roster_tells_absent_from_isolated(study, write_csv):
 
 def test_roster_errors(study, write_csv):
     bad = write_csv([("x", "2020", "2019")], name="r.csv", header=("actor", "from", "until"))
-    with pytest.raises(InputError, match="row 1, column 'from': comes after the last period"):
+    with pytest.raises(InputError, match="line 2, column 'from': comes after the last period"):
         study.import_actors(bad, first="from", last="until")
 
 

@@ -26,6 +26,7 @@ import os
 import re
 import shutil
 import time
+import unicodedata
 from pathlib import Path
 
 import pytest
@@ -75,6 +76,11 @@ weights = st.one_of(
 )
 
 
+def _name(text: str) -> str:
+    """A name as stored: NFC (Unicode Standard Annex #15), whitespace trimmed and collapsed."""
+    return " ".join(unicodedata.normalize("NFC", text).split())
+
+
 @st.composite
 def event_files(draw, label=labels):
     """A well-formed event file and the events it must give.
@@ -103,8 +109,8 @@ def event_files(draw, label=labels):
         values = {"source": source, "target": target, "date": date, "kind": relation, "w": weight, "note": draw(label)}
         records.append([values[c] for c in columns])
         row += 1
-        if source.strip() != target.strip():
-            expected.append((row, source.strip(), target.strip(), relation.strip(), period, float(weight)))
+        if _name(source) != _name(target):
+            expected.append((row, _name(source), _name(target), _name(relation), period, float(weight)))
 
     def field(value: str) -> str:
         if quote_all or any(c in value for c in (delimiter, '"', "\n", "\r")):
@@ -231,14 +237,14 @@ def test_rows_of_hostile_values_import_or_fail_cleanly(template, data):
 def roster_files(draw):
     """A well-formed roster, and what each actor must end up with."""
     n = draw(st.integers(1, 12))
-    names = draw(st.lists(labels, min_size=n, max_size=n, unique_by=lambda s: s.strip()))
+    names = draw(st.lists(labels, min_size=n, max_size=n, unique_by=_name))
     rows, expected = [], {}
     for name in names:
         first = draw(st.one_of(st.just(""), st.integers(1000, 2999).map(str)))
         last = draw(st.one_of(st.just(""), st.integers(int(first or 1000), 2999).map(str)))
         sector = draw(st.one_of(st.just(""), labels))
         rows.append([name, first, last, sector])
-        expected[name.strip()] = (
+        expected[_name(name)] = (
             first + "-01-01" if first else None,
             last + "-12-31" if last else None,
             sector,

@@ -122,8 +122,12 @@ def parse_scheme_name(name: str) -> PeriodScheme:
     return parse_scheme(base, int(origin) if origin else 0)
 
 
-def parse_dates(values: pd.Series, date_format: str | None = None) -> tuple[pd.Series, np.ndarray, np.ndarray]:
-    """Parse event dates: ISO dates (and date-times), bare years, or an explicit format.
+def parse_dates(values: pd.Series, date_format=None) -> tuple[pd.Series, np.ndarray, np.ndarray]:
+    """Parse event dates: ISO dates (and date-times), bare years, or explicit formats.
+
+    ``date_format`` is None (ISO dates and bare years), one strftime format, or
+    several tried in turn: each value takes the first format that reads it.
+    The name ``iso`` among them stands for the default (ISO or bare year).
 
     Returns
     -------
@@ -132,24 +136,43 @@ def parse_dates(values: pd.Series, date_format: str | None = None) -> tuple[pd.S
     bad : bool array, True where the value could not be read
     """
     text = values.astype(str).str.strip()
-    year_only = text.str.fullmatch(r"\d{4}").to_numpy(dtype=bool)
+    bare = text.str.fullmatch(r"\d{4}").to_numpy(dtype=bool)
+    formats = [date_format] if isinstance(date_format, str) else list(date_format or [None])
     dates = pd.Series(pd.NaT, index=values.index, dtype="datetime64[s]")
-    if date_format:
-        try:
-            parsed = _naive(pd.to_datetime(text, format=date_format, errors="coerce"))
-        except (OverflowError, ValueError, TypeError) as exc:
-            raise UsageError(f"--date-format {date_format!r} cannot be used ({exc}); give a strftime format such as %d/%m/%Y") from None
-        dates[:] = parsed.astype("datetime64[s]")
-        year_only = np.zeros(len(text), dtype=bool) if "%m" in date_format or "%d" in date_format or "%b" in date_format else year_only
-    else:
-        if year_only.any():
-            dates[year_only] = pd.to_datetime(text[year_only], format="%Y", errors="coerce").astype("datetime64[s]")
-        rest = ~year_only
-        if rest.any():
-            dates[rest] = _iso(text[rest])
+    year_only = np.zeros(len(text), dtype=bool)
+    left = np.ones(len(text), dtype=bool)
+    for fmt in formats:
+        if not left.any():
+            break
+        part = text[left]
+        if fmt is None or str(fmt).lower() == "iso":
+            parsed, part_year = _default_dates(part, bare[left])
+        else:
+            try:
+                parsed = _naive(pd.to_datetime(part, format=fmt, errors="coerce")).astype("datetime64[s]")
+            except (OverflowError, ValueError, TypeError) as exc:
+                raise UsageError(f"--date-format {fmt!r} cannot be used ({exc}); give a strftime format such as %d/%m/%Y") from None
+            has_day = any(code in fmt for code in ("%m", "%d", "%b", "%B", "%j"))
+            part_year = np.zeros(len(part), dtype=bool) if has_day else bare[left]
+        got = parsed.notna().to_numpy()
+        at = np.flatnonzero(left)[got]
+        dates.iloc[at] = parsed[got].to_numpy()
+        year_only[at] = part_year[got]
+        left[at] = False
     years = dates.dt.year
     bad = (dates.isna() | (years < MIN_YEAR) | (years > MAX_YEAR)).to_numpy()
     return dates, year_only, bad
+
+
+def _default_dates(text: pd.Series, year_only: np.ndarray) -> tuple[pd.Series, np.ndarray]:
+    """ISO dates and date-times, and bare years (``year_only``)."""
+    dates = pd.Series(pd.NaT, index=text.index, dtype="datetime64[s]")
+    if year_only.any():
+        dates[year_only] = pd.to_datetime(text[year_only], format="%Y", errors="coerce").astype("datetime64[s]")
+    rest = ~year_only
+    if rest.any():
+        dates[rest] = _iso(text[rest])
+    return dates, year_only
 
 
 def _iso(text: pd.Series) -> pd.Series:

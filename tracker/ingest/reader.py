@@ -73,11 +73,12 @@ class TableFile:
     path: Path
     columns: list[str]
     size: int
-    kind: str  # "csv" or "parquet"
+    kind: str  # "csv", "parquet" or "xlsx"
     delimiter: str | None = None
     encoding: str = "utf-8"
     chunk_rows: int = CHUNK_ROWS
     bytes_read: int = field(default=0, init=False)
+    sheet: pd.DataFrame | None = field(default=None, repr=False)  # an Excel sheet, read whole
 
     @property
     def name(self) -> str:
@@ -98,6 +99,13 @@ class TableFile:
         """Yield ``(first_row_number, frame)``; frames hold text, '' for missing."""
         if self.kind == "parquet":
             yield from self._parquet_chunks()
+        elif self.kind == "xlsx":
+            frame = self.sheet.copy()
+            frame.index = range(1, len(frame) + 1)
+            blank = (frame == "").all(axis=1)
+            self.bytes_read = self.size
+            if len(frame[~blank]):
+                yield 1, frame[~blank]
         else:
             yield from self._csv_chunks()
 
@@ -262,7 +270,7 @@ def _strict_chunks(reader, wide_row_error) -> Iterator[pd.DataFrame]:
 
 
 def open_table(path: str | Path, *, delimiter: str | None = None, chunk_rows: int | None = None) -> TableFile:
-    """Open a CSV or Parquet file for streaming, checking what can be checked up front.
+    """Open a CSV, Parquet or Excel (.xlsx, first sheet) file for streaming, checking what can be checked up front.
 
     Raises :class:`InputError` for a missing or empty file, undecodable text,
     an unreadable header, or duplicate or blank column names.
@@ -278,6 +286,12 @@ def open_table(path: str | Path, *, delimiter: str | None = None, chunk_rows: in
         return _open_parquet(path, size, chunk_rows)
     with open(path, "rb") as handle:
         head = handle.read(_SNIFF_BYTES)
+    if head.startswith(b"PK\x03\x04") or path.suffix.lower() in (".xlsx", ".xlsm"):
+        from tracker.ingest.columns import read_excel
+
+        sheet = read_excel(path)
+        _check_header(list(sheet.columns), path.name)
+        return TableFile(path, list(sheet.columns), size, "xlsx", None, "utf-8", chunk_rows, sheet=sheet)
     if head.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
         raise InputError("is UTF-16 text", file=path.name, fix="re-save it as UTF-8 (CSV UTF-8 in a spreadsheet program)")
     encoding = "utf-8-sig" if head.startswith(codecs.BOM_UTF8) else "utf-8"

@@ -13,6 +13,8 @@ import json
 import numpy as np
 import pandas as pd
 
+from tracker.errors import InputError
+from tracker.ingest.block import normalise_names
 from tracker.ingest.events import MAX_LABEL, _first_bad, _no_nul
 from tracker.ingest.periods import PeriodScheme, column_sort_keys, parse_dates
 
@@ -38,6 +40,8 @@ def validate_roster(
     _first_bad(labels == "", labels, file, actor, "has no actor label", "fill it in or drop the row")
     _first_bad(labels.str.len() > MAX_LABEL, labels, file, actor, f"has an actor label longer than {MAX_LABEL} characters", "shorten the label")
     _no_nul(labels, file, actor, "actor")
+    labels = normalise_names(labels)
+    _first_bad(labels.str.len() > MAX_LABEL, labels, file, actor, f"has an actor label longer than {MAX_LABEL} characters", "shorten the label")
     dup = labels.duplicated().to_numpy()
     _first_bad(dup, labels, file, actor, "names an actor a second time", "keep one row per actor")
     out = pd.DataFrame({"row": frame.index.to_numpy(), "actor": labels.to_numpy(dtype=object)})

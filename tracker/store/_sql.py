@@ -34,9 +34,9 @@ class StoreBase:
         self.engine = engine
 
     @contextmanager
-    def _write(self) -> Iterator[Connection]:
+    def _write(self, *, bulk: bool = False) -> Iterator[Connection]:
         """One write transaction, after any other process's write to the study (see ``lock_for_writing``)."""
-        with write_transaction(self.engine) as conn:
+        with write_transaction(self.engine, bulk=bulk) as conn:
             yield conn
 
 

@@ -38,7 +38,7 @@ from sqlalchemy.engine import Engine
 
 from tracker.store.database import write_transaction
 from tracker.store.models import (
-    Actor, ActorAlias, Base, Block, Event, Fit, FitPeriod, Membership, Period, RelationRow, Setting, Tie,
+    Actor, ActorAlias, Base, Batch, Block, Event, Fit, FitPeriod, Membership, Period, RelationRow, Setting, Tie,
 )
 
 __all__ = ["Problem", "check_study", "repair_ties", "REPAIR_TIES_HINT"]
@@ -218,7 +218,27 @@ def _events(conn) -> list[Problem]:
             "events", f"{selfies} events go from an actor to itself (imports drop such rows)",
             "delete them: DELETE FROM events WHERE source_id = target_id; then " + REPAIR_TIES_HINT,
         ))
+    # Each batch stored as many events as it says it loaded (rows of a file count 1
+    # each; a folder import's rows count the events they sum, events.n_events).
+    counted = (
+        select(Batch.id, Batch.rows_loaded, func.coalesce(func.sum(Event.n_events), 0))
+        .outerjoin(Event, Event.batch_id == Batch.id).where(Batch.kind == "events").group_by(Batch.id, Batch.rows_loaded)
+    )
+    short = [(b, loaded, n) for b, loaded, n in conn.execute(counted) if int(n) != int(loaded)]
+    if short:
+        shown = ", ".join(f"batch {b}: {n} of {loaded}" for b, loaded, n in short[:3])
+        problems.append(Problem(
+            "events", f"{len(short)} imports hold another number of events than they loaded ({shown})",
+            "re-import those files with --replace",
+        ))
     bad_weight = or_(Event.weight.is_(None), Event.weight < 0, Event.weight > 1e308, Event.weight < -1e308)
+    nonpositive_count = or_(Event.n_events.is_(None), Event.n_events < 1)
+    count_bad = conn.execute(select(func.count()).select_from(Event).where(nonpositive_count)).scalar_one()
+    if count_bad:
+        problems.append(Problem(
+            "events", f"{count_bad} stored events stand for fewer than one event (n_events < 1)",
+            "re-import the batches that hold them with --replace",
+        ))
     count, first = conn.execute(select(func.count(), func.min(Event.id)).where(bad_weight)).one()
     if count:
         problems.append(Problem(
@@ -256,7 +276,7 @@ def _ties(conn) -> list[Problem]:
     key = ["period_id", "relation_id", "source_id", "target_id"]
     expected = _frame(
         conn.execute(
-            select(Event.period_id, Event.relation_id, src, dst, func.sum(Event.weight), func.count())
+            select(Event.period_id, Event.relation_id, src, dst, func.sum(Event.weight), func.sum(Event.n_events))
             .join(RelationRow, RelationRow.id == Event.relation_id)
             .where(Event.source_id != Event.target_id)
             .group_by(Event.period_id, Event.relation_id, src, dst)

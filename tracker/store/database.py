@@ -115,16 +115,27 @@ _WRITING = "roletrail_writing"
 
 
 @contextmanager
-def write_transaction(engine: Engine) -> Iterator[Connection]:
-    """One write transaction: waits for other writers, then holds the write lock until commit."""
+def write_transaction(engine: Engine, *, bulk: bool = False) -> Iterator[Connection]:
+    """One write transaction: waits for other writers, then holds the write lock until commit.
+
+    ``bulk`` (SQLite): foreign keys are not checked row by row during the
+    transaction (``PRAGMA foreign_keys`` can only change outside one).  For
+    bulk loads whose ids all come from the same transaction; ``roletrail
+    check`` verifies every reference afterwards.
+    """
     with engine.connect() as conn:
         conn.info[_WRITING] = True
+        driver = conn.connection.driver_connection if bulk and engine.dialect.name == "sqlite" else None
         try:
+            if driver is not None:
+                driver.execute("PRAGMA foreign_keys=OFF")
             with conn.begin():
                 lock_for_writing(conn)
                 yield conn
         finally:
             conn.info.pop(_WRITING, None)
+            if driver is not None:
+                driver.execute("PRAGMA foreign_keys=ON")
 
 
 def lock_for_writing(conn) -> None:

@@ -58,22 +58,32 @@ class EventStore(StoreBase):
         mapping: dict,
         scheme: PeriodScheme,
         directed: bool,
-        chunks: Iterable[tuple[pd.DataFrame, int]],
+        blocks: Iterable,
         replace: bool = False,
+        drop_duplicates: bool = False,
     ) -> ImportReport:
-        """Load validated event chunks as one batch, in one transaction.
+        """Load validated event blocks as one batch, in one transaction.
 
-        ``chunks`` yields ``(events, self_ties_dropped)`` as made by
-        :func:`tracker.ingest.events.validate_events`; an exception raised while
-        iterating rolls everything back.  Ties of every period the batch touches
-        are rebuilt from the raw events.
+        ``blocks`` yields :class:`tracker.ingest.block.EventBlock` objects; an
+        exception raised while iterating rolls everything back.  Each block's
+        distinct actors, relations and periods are resolved to ids once, the
+        rows are written with the back end's bulk path (SQLite: one prepared
+        INSERT run over every row; PostgreSQL: COPY), and the ties of periods
+        that had no events before are summed in numpy in the same pass; ties
+        of periods that had events are rebuilt from the raw events in SQL.
+
+        Duplicates: a row equal to an earlier row of the batch, or to an event
+        already in the study (same actors, relation, period, date and weight,
+        dates compared after parsing), is counted; ``drop_duplicates`` leaves
+        those rows out.
         """
-        with self._write() as conn:
+        # bulk: ids all come from this transaction, so foreign keys are not checked row by row
+        with self._write(bulk=True) as conn:
             self._check_scheme(conn, scheme)
             earlier = self._earlier_batches(conn, "events", content_hash, file_name, replace)
-            touched: set[int] = set()
+            touched_old: set[int] = set()
             if earlier:
-                touched |= self._batch_periods(conn, earlier)
+                touched_old |= self._batch_periods(conn, earlier)
                 conn.execute(delete(Event).where(Event.batch_id.in_(earlier)))
                 conn.execute(delete(Batch).where(Batch.id.in_(earlier)))
             batch_id = conn.execute(
@@ -87,34 +97,134 @@ class EventStore(StoreBase):
             periods = {label: pid for pid, label in conn.execute(select(Period.id, Period.label))}
             period_keys = dict(conn.execute(select(Period.label, Period.sort_key)).all())
             relations = {name: (rid, d) for rid, name, d in conn.execute(select(RelationRow.id, RelationRow.name, RelationRow.directed))}
+            relations_before = sorted(relations)
+            with_events = set(conn.execute(select(Event.period_id).distinct()).scalars())
+            fresh = not with_events
+            if fresh:
+                # An empty events table: load it without indexes and build them once at the end.
+                for index in Event.__table__.indexes:
+                    index.drop(conn)
             actors_before = len(set(aliases.values()))
-            loaded = dropped = read = 0
-            for events, self_ties in chunks:
-                dropped += self_ties
-                read += len(events) + self_ties
-                if events.empty:
+            dedup = _Duplicates(self, conn, with_events)
+            ties: list[pd.DataFrame] = []
+            tally = dict(read=0, loaded=0, stored=0, self_ties=0, rejected=0, in_file=0, in_study=0)
+            for block in blocks:
+                tally["self_ties"] += block.self_ties
+                tally["rejected"] += len(block.rejected)
+                tally["read"] += block.events + block.self_ties + len(block.rejected)
+                if not len(block):
                     continue
-                source = self._resolve_actors(conn, aliases, events["source"])
-                target = self._resolve_actors(conn, aliases, events["target"])
-                relation = self._resolve_relations(conn, relations, events["relation"], directed)
-                period = self._resolve_periods(conn, periods, period_keys, events, scheme)
-                touched |= set(np.unique(period).tolist())
-                self._insert_events(conn, batch_id, events, source, target, relation, period)
-                loaded += len(events)
-            if read == 0:
+                actor_ids = self._actor_ids(conn, aliases, block.actors)
+                rel_ids = self._resolve_relations(conn, relations, pd.Series(block.relations, dtype=object), directed)
+                used = np.unique(block.period)
+                wanted = block.periods.iloc[used].rename(columns={"label": "period"})
+                period_ids = np.full(len(block.periods), -1, dtype=np.int64)
+                period_ids[used] = self._resolve_periods(conn, periods, period_keys, wanted, scheme)
+                rows = pd.DataFrame({
+                    "source_id": actor_ids[block.source], "target_id": actor_ids[block.target],
+                    "relation_id": rel_ids[block.relation], "period_id": period_ids[block.period],
+                    "date": block.date, "weight": block.weight,
+                })
+                if block.n_events is None:
+                    in_file, in_study = dedup.find(rows, block.dates)
+                else:  # aggregated rows: one per pair and period already
+                    in_file = in_study = np.zeros(len(rows), dtype=bool)
+                tally["in_file"] += int(in_file.sum())
+                tally["in_study"] += int(in_study.sum())
+                keep = ~(in_file | in_study) if drop_duplicates else np.ones(len(rows), dtype=bool)
+                counts = block.n_events
+                if not keep.all():
+                    rows = rows[keep]
+                    counts = None if counts is None else counts[keep]
+                occurred = block.dates[rows["date"].to_numpy()]
+                self._insert_event_rows(conn, batch_id, block.rows[keep], rows, occurred, counts)
+                tally["stored"] += len(rows)
+                tally["loaded"] += len(rows) if counts is None else int(counts.sum())
+                old = rows["period_id"].isin(with_events).to_numpy()
+                touched_old |= set(np.unique(rows["period_id"].to_numpy()[old]).tolist())
+                if (~old).any():
+                    ties.append(_tie_sums(rows[~old], counts if counts is None else counts[~old], relations))
+            if tally["read"] == 0:
                 raise StoreError(f"{file_name}: has a header but no data rows; nothing was imported")
+            if tally["stored"] == 0 and tally["rejected"]:
+                raise StoreError(f"{file_name}: every row is bad ({tally['rejected']} rows); nothing was imported")
             conn.execute(
                 update(Batch).where(Batch.id == batch_id).values(
-                    rows_read=read, rows_loaded=loaded, self_ties_dropped=dropped
+                    rows_read=tally["read"], rows_loaded=tally["loaded"], self_ties_dropped=tally["self_ties"],
+                    duplicates=tally["in_file"] + tally["in_study"], rows_rejected=tally["rejected"],
                 )
             )
-            self._rebuild_ties(conn, touched)
+            if fresh:
+                for index in Event.__table__.indexes:
+                    index.create(conn)
+            new_periods = self._insert_ties(conn, ties)
+            self._rebuild_ties(conn, touched_old - new_periods)
             self._drop_empty_periods(conn)
             return ImportReport(
-                batch=batch_id, file=file_name, rows_read=read, rows_loaded=loaded,
-                self_ties_dropped=dropped, new_actors=len(set(aliases.values())) - actors_before,
-                periods=len(touched), replaced=list(earlier),
+                batch=batch_id, file=file_name, rows_read=tally["read"], rows_loaded=tally["loaded"],
+                rows_stored=tally["stored"], self_ties_dropped=tally["self_ties"],
+                new_actors=len(set(aliases.values())) - actors_before,
+                periods=len(touched_old | new_periods), replaced=list(earlier),
+                duplicates_in_file=tally["in_file"], duplicates_in_study=tally["in_study"],
+                duplicates_dropped=drop_duplicates, rows_rejected=tally["rejected"],
+                relations_before=relations_before, new_relations=sorted(set(relations) - set(relations_before)),
             )
+
+    def _actor_ids(self, conn, aliases: dict[str, int], labels: np.ndarray) -> np.ndarray:
+        """Ids of distinct labels (new actors are added), in the order of ``labels``."""
+        new = [label for label in labels.tolist() if label not in aliases]
+        if new:
+            top = conn.execute(select(func.max(Actor.id))).scalar() or 0
+            conn.execute(insert(Actor), [{"label": label, "in_roster": False} for label in new])
+            ids = dict(conn.execute(select(Actor.label, Actor.id).where(Actor.id > top)).all())
+            conn.execute(insert(ActorAlias), [{"alias": label, "actor_id": ids[label]} for label in new])
+            aliases.update(ids)
+        return np.fromiter((aliases[label] for label in labels.tolist()), dtype=np.int64, count=len(labels))
+
+    def _insert_event_rows(self, conn, batch_id: int, file_rows, rows: pd.DataFrame, occurred, counts) -> None:
+        """Write event rows with the back end's bulk path."""
+        columns = [
+            itertools.repeat(batch_id, len(rows)),
+            np.asarray(file_rows, dtype=np.int64).tolist(),
+            rows["source_id"].tolist(), rows["target_id"].tolist(), rows["relation_id"].tolist(),
+            occurred.tolist(), rows["period_id"].tolist(), rows["weight"].tolist(),
+        ]
+        names = list(_EVENT_COLUMNS)
+        if counts is not None:
+            columns.append(np.asarray(counts, dtype=np.int64).tolist())
+            names.append("n_events")
+        self._bulk_insert(conn, "events", names, columns)
+
+    def _bulk_insert(self, conn, table: str, names: Sequence[str], columns: Sequence) -> None:
+        """Rows given column by column: SQLite executemany of one prepared INSERT, PostgreSQL COPY."""
+        rows = list(zip(*columns))
+        if not rows:
+            return
+        if conn.dialect.name == "sqlite":
+            # The driver's executemany over tuples is several times faster than
+            # a dict per row; the statement is fixed and parameterised.
+            marks = ", ".join("?" * len(names))
+            conn.exec_driver_sql(f"INSERT INTO {table} ({', '.join(names)}) VALUES ({marks})", rows)
+        elif conn.dialect.name == "postgresql":
+            _copy_rows(conn, table, names, rows)
+        else:
+            model = {"events": Event, "ties": Tie}[table]
+            conn.execute(insert(model), [dict(zip(names, values)) for values in rows])
+
+    def _insert_ties(self, conn, parts: list[pd.DataFrame]) -> set[int]:
+        """Store ties summed in numpy (periods without earlier events); returns their period ids."""
+        if not parts:
+            return set()
+        key = ["period_id", "relation_id", "source_id", "target_id"]
+        ties = pd.concat(parts, ignore_index=True).groupby(key, sort=False, as_index=False).sum()
+        periods = set(np.unique(ties["period_id"].to_numpy()).tolist())
+        ordered = sorted(periods)
+        for start in range(0, len(ordered), _IN_CHUNK):  # ties left by a replaced batch
+            conn.execute(delete(Tie).where(Tie.period_id.in_(ordered[start : start + _IN_CHUNK])))
+        # in primary-key order: the B-tree grows at its right edge instead of splitting pages all over
+        ties = ties[ties["value"] > 0].sort_values(key)
+        self._bulk_insert(conn, "ties", [*key, "value", "n_events"], [ties[c].tolist() for c in [*key, "value", "n_events"]])
+        return periods
 
     def import_roster(
         self, *, file_name: str, content_hash: str, mapping: dict, roster: pd.DataFrame, replace: bool = False
@@ -269,7 +379,7 @@ class EventStore(StoreBase):
             src = case((keep_order, Event.source_id), else_=Event.target_id)
             dst = case((keep_order, Event.target_id), else_=Event.source_id)
             grouped = (
-                select(Event.period_id, Event.relation_id, src, dst, func.sum(Event.weight), func.count())
+                select(Event.period_id, Event.relation_id, src, dst, func.sum(Event.weight), func.sum(Event.n_events))
                 .join(RelationRow, RelationRow.id == Event.relation_id)
                 .where(Event.period_id.in_(part))
                 .group_by(Event.period_id, Event.relation_id, src, dst)
@@ -306,9 +416,11 @@ class EventStore(StoreBase):
         with self.engine.connect() as conn:
             rows = conn.execute(
                 select(Batch.id, Batch.kind, Batch.file_name, Batch.rows_read, Batch.rows_loaded,
-                       Batch.self_ties_dropped, Batch.imported_at, Batch.content_hash).order_by(Batch.id)
+                       Batch.self_ties_dropped, Batch.duplicates, Batch.rows_rejected, Batch.imported_at,
+                       Batch.content_hash).order_by(Batch.id)
             ).all()
-        return pd.DataFrame(rows, columns=["batch", "kind", "file", "rows_read", "rows_loaded", "self_ties_dropped", "imported_at", "sha256"])
+        return pd.DataFrame(rows, columns=["batch", "kind", "file", "rows_read", "rows_loaded", "self_ties_dropped",
+                                           "duplicates", "rows_rejected", "imported_at", "sha256"])
 
     def counts(self) -> dict[str, int]:
         """Row counts of the main tables (for summaries and checks)."""
@@ -459,6 +571,15 @@ class EventStore(StoreBase):
         return frame
 
     # ------------------------------------------------------------------ actors
+    def actor_event_counts(self) -> dict[int, int]:
+        """Events each actor takes part in (as source or target), by actor id."""
+        with self.engine.connect() as conn:
+            counts: dict[int, int] = {}
+            for column in (Event.source_id, Event.target_id):
+                for aid, n in conn.execute(select(column, func.sum(Event.n_events)).group_by(column)):
+                    counts[aid] = counts.get(aid, 0) + int(n)
+        return counts
+
     def add_alias(self, alias: str, actor: str) -> dict:
         """Make ``alias`` another name of ``actor``.
 
@@ -466,7 +587,9 @@ class EventStore(StoreBase):
         earlier, or an organisation that was merged), its events, roster
         entry and aliases move to ``actor`` and the ties are rebuilt.
         """
-        alias, actor = alias.strip(), actor.strip()
+        from tracker.ingest.block import normalise_names
+
+        alias, actor = normalise_names(pd.Series([alias, actor])).tolist()
         if not alias or not actor or alias == actor:
             raise UsageError("give two different, non-empty names: roletrail alias OTHER-NAME ACTOR")
         with self._write() as conn:
@@ -511,6 +634,9 @@ class EventStore(StoreBase):
                 raise UsageError("this study has no events yet; import data first")
             if not current.dated:
                 raise UsageError("this study's periods come from a column, so its events have no dates to re-cut")
+            if conn.execute(select(Event.id).where(Event.occurred.is_(None)).limit(1)).first() is not None:
+                raise UsageError("some batches were imported from a folder, summed per period without dates, so they "
+                                 "cannot be re-cut; import those files again with the new --period instead")
             events = pd.DataFrame(conn.execute(select(Event.id, Event.occurred)).all(), columns=["id", "occurred"])
             dates, year_only, bad = parse_dates(events["occurred"])
             periods = scheme.assign(dates, year_only)
@@ -539,3 +665,71 @@ class EventStore(StoreBase):
         """Fits belong to the old periods: a re-cut removes them (refit afterwards)."""
         conn.execute(delete(Fit))
 
+
+
+def _tie_sums(rows: pd.DataFrame, counts, relations: dict) -> pd.DataFrame:
+    """Ties of event rows: value = sum of weights, n_events = number of events.
+
+    Undirected relations put the smaller actor id first (see :meth:`EventStore._rebuild_ties`).
+    """
+    directed_ids = [rid for rid, flag in relations.values() if flag]
+    src = rows["source_id"].to_numpy()
+    dst = rows["target_id"].to_numpy()
+    flip = ~rows["relation_id"].isin(directed_ids).to_numpy() & (src > dst)
+    frame = pd.DataFrame({
+        "period_id": rows["period_id"].to_numpy(), "relation_id": rows["relation_id"].to_numpy(),
+        "source_id": np.where(flip, dst, src), "target_id": np.where(flip, src, dst),
+        "value": rows["weight"].to_numpy(), "n_events": 1 if counts is None else np.asarray(counts, dtype=np.int64),
+    })
+    return frame.groupby(["period_id", "relation_id", "source_id", "target_id"], sort=False, as_index=False).sum()
+
+
+class _Duplicates:
+    """Rows repeating an earlier row of the import or an event already in the study.
+
+    Rows are compared on (source, target, relation, period, date, weight),
+    dates as parsed ISO text, through a 64-bit hash of those values
+    (``pandas.util.hash_pandas_object``; two different rows share a hash with
+    probability about 2**-64 per pair).
+    """
+
+    def __init__(self, store: "EventStore", conn, with_events: set[int]) -> None:
+        self.store, self.conn, self.with_events = store, conn, with_events
+        self.seen: list[np.ndarray] = []
+        self.study: dict[int, np.ndarray] = {}
+        self.dates: dict = {}
+
+    def _date_keys(self, values: np.ndarray) -> np.ndarray:
+        return np.fromiter((self.dates.setdefault(v, len(self.dates)) for v in values.tolist()), dtype=np.int64, count=len(values))
+
+    def _hash(self, rows: pd.DataFrame) -> np.ndarray:
+        return pd.util.hash_pandas_object(rows, index=False).to_numpy()
+
+    def find(self, rows: pd.DataFrame, dates: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        keyed = rows.assign(date=self._date_keys(dates)[rows["date"].to_numpy()])
+        hashes = self._hash(keyed)
+        in_file = pd.Series(hashes).duplicated().to_numpy()
+        if self.seen:
+            in_file = in_file | np.isin(hashes, np.concatenate(self.seen))
+        self.seen.append(hashes)
+        old = rows["period_id"].isin(self.with_events).to_numpy()
+        in_study = np.zeros(len(rows), dtype=bool)
+        if old.any():
+            stored = np.concatenate([self._stored(int(p)) for p in np.unique(keyed["period_id"].to_numpy()[old])])
+            in_study = old & np.isin(hashes, stored) & ~in_file
+        return in_file, in_study
+
+    def _stored(self, period_id: int) -> np.ndarray:
+        if period_id not in self.study:
+            found = pd.DataFrame(
+                self.conn.execute(
+                    select(Event.source_id, Event.target_id, Event.relation_id, Event.period_id, Event.occurred, Event.weight)
+                    .where(Event.period_id == period_id)
+                ).all(),
+                columns=["source_id", "target_id", "relation_id", "period_id", "date", "weight"],
+            )
+            found = found.astype({"source_id": np.int64, "target_id": np.int64, "relation_id": np.int64,
+                                  "period_id": np.int64, "weight": np.float64})
+            found["date"] = self._date_keys(found["date"].to_numpy(dtype=object))
+            self.study[period_id] = self._hash(found)
+        return self.study[period_id]

@@ -84,6 +84,8 @@ class Batch(Base):
     rows_read: Mapped[int] = mapped_column(Integer)
     rows_loaded: Mapped[int] = mapped_column(Integer)
     self_ties_dropped: Mapped[int] = mapped_column(Integer, default=0)
+    duplicates: Mapped[int] = mapped_column(Integer, default=0, server_default="0")  # rows repeating a row or a stored event
+    rows_rejected: Mapped[int] = mapped_column(Integer, default=0, server_default="0")  # bad rows skipped (--errors report)
     imported_at: Mapped[datetime] = mapped_column(DateTime)
 
     __table_args__ = (UniqueConstraint("kind", "content_hash", name="uq_batches_kind_hash"),)
@@ -111,6 +113,8 @@ class Event(Base):
     occurred: Mapped[str | None] = mapped_column(String(10))  # ISO date; NULL when imported by period
     period_id: Mapped[int] = mapped_column(ForeignKey("periods.id"))
     weight: Mapped[float] = mapped_column(Float, default=1.0)
+    # events of the file this row stands for: 1, or a pair's count in a period (aggregated folder import)
+    n_events: Mapped[int] = mapped_column(Integer, default=1, server_default="1")
 
     __table_args__ = (
         Index("ix_events_batch", "batch_id"),
