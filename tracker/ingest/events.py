@@ -15,7 +15,6 @@ import numpy as np
 import pandas as pd
 
 from tracker.errors import InputError, UsageError
-from tracker.ingest.periods import PeriodScheme, parse_dates
 
 __all__ = ["EventMapping", "MAX_LABEL", "MAX_WEIGHT"]
 

@@ -29,7 +29,7 @@ import numpy as np
 import pandas as pd
 import pyarrow as pa
 
-from tracker.errors import InputError, UsageError
+from tracker.errors import InputError
 from tracker.ingest.block import EventBlock, _Checks, _column_periods, _dated_periods, _labels
 from tracker.ingest.events import MAX_WEIGHT, EventMapping
 from tracker.ingest.periods import PeriodScheme

@@ -13,7 +13,6 @@ import json
 import numpy as np
 import pandas as pd
 
-from tracker.errors import InputError
 from tracker.ingest.block import normalise_names
 from tracker.ingest.events import MAX_LABEL, _first_bad, _no_nul
 from tracker.ingest.periods import PeriodScheme, column_sort_keys, parse_dates
