@@ -472,8 +472,8 @@ def _split(values) -> list[str] | None:
 @click.option("--joint", is_flag=True,
               help="Deprecated: use --method dynamic (one model over all periods).")
 @click.option("--smooth", "smoothing", default=None,
-              help="Descriptive methods: how strongly to resist changes of position from one period to the next "
-                   "(change penalty, added to the method's own objective, in units of its per-actor objective): auto "
+              help="How strongly to resist changes of position from one period to the next, for the descriptive "
+                   "methods (change penalty, added to the method's own objective, in units of its per-actor objective): auto "
                    "(0.5 for structural, concor and optimize; none for the others), off (fit each period alone) or a "
                    "number; higher means fewer, surer moves [default: auto]. The dynamic model links periods itself.")
 @computing

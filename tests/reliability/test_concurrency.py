@@ -102,9 +102,10 @@ def test_import_while_a_fit_runs(files, tmp_path):
     with Study(db) as study:  # big enough that the fit computes for a few seconds
         study.import_events(files["one"], source="source", target="target", date="date", relation="kind", weight="w")
     expected = _reference(db, tmp_path, files["two"])
-    # 9999 permutation draws keep the fit computing for several seconds (the fit itself is
-    # quicker than the import of the second file).
-    fit = _start(db, "fit", "--positions", "3", "--draws", "9999")
+    # 199 fit-test refits in one process keep the fit computing for several seconds (the
+    # fit itself is quicker than the import of the second file).
+    fit = _start(db, "fit", "--method", "structural", "--smooth", "off", "--positions", "3", "--draws", "199",
+                 "--workers", "1")
     time.sleep(1.5)  # the fit has started up and is reading or fitting
     imp = _start(db, "import", str(files["two"]), *IMPORT)
     imp_code, imp_text = _finish(imp)

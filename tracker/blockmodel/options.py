@@ -179,9 +179,10 @@ def check_request(
     if opts.get("degree_corrected") and opts.get("model") == "bernoulli":
         raise UsageError("--degree-corrected works with the Poisson model only; drop --model bernoulli or --degree-corrected")
     if smoothing_given and settings.smoothing != 0:
-        if settings.method == "regular":
-            raise UsageError("--smooth does not apply to method regular (regular equivalence has no blockmodel "
-                             "likelihood to penalise); drop --smooth or use --smooth off")
+        if settings.method != "dynamic":
+            from tracker.longitudinal.smoothing import smoothing_penalty
+
+            smoothing_penalty(settings.method, settings.smoothing)  # refuses a penalty the method cannot honour
         if settings.method == "dynamic":
             raise UsageError("the dynamic model links periods through its Markov chain; drop --smooth "
                              "(or choose a descriptive method to smooth)")
