@@ -74,10 +74,11 @@ def run_demo(
                                 first=spec.get("roster_first"), last=spec.get("roster_last"))
             say("imported the roster of actors")
         fit = dict(spec.get("fit") or {})
-        result = study.fit(method=fit.get("method", "structural"), positions=fit.get("positions", 4),
-                           criterion=fit.get("criterion", "zero-block"), seed=fit.get("seed", 0),
-                           options=fit.get("options") or {}, draws=fit.get("draws", 99))
-        say(f"fitted {len(result['periods'])} periods with {fit.get('method', 'structural')}")
+        # The scenario's own settings; whatever it leaves out takes the fit's defaults.
+        settings = {key: fit[key] for key in ("method", "positions", "criterion", "seed", "options", "draws")
+                    if key in fit}
+        result = study.fit(**settings)
+        say(f"fitted {len(result['periods'])} periods with {study.fit_info()['method']}")
         aligned = study.align(draws=draws)
         say(f"aligned into {int((aligned['tracks']['track'] > 0).sum())} tracks; {len(aligned['moves'])} moves")
         html = study.report(out / f"{name}-report.html")
