@@ -290,7 +290,8 @@ class MoveCalibrator:
             x = features[:, 0]
             out = np.full(x.size, np.nan)
             ok = np.isfinite(x)
-            out[ok] = self.model_.predict(x[ok])
+            if ok.any():
+                out[ok] = self.model_.predict(x[ok])
             return np.clip(out, 0.0, 1.0)
         return np.clip(self.model_.predict_proba(features)[:, 1], 0.0, 1.0)
 
