@@ -11,7 +11,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-__all__ = ["align_fit", "dynamic_move_confidence", "reported_changes", "REPORT_THRESHOLD", "aligned_inputs", "stored_alignment", "move_confidence_of", "identity_alignment",
+__all__ = ["align_fit", "dynamic_move_confidence", "reported_changes", "REPORT_THRESHOLD",
+           "ALIGN_SETTINGS", "alignment_settings", "aligned_inputs", "stored_alignment", "move_confidence_of", "identity_alignment",
            "carry_track_ids", "track_names"]
 
 
@@ -64,6 +65,16 @@ def align_fit(store, info: dict, params: dict, *, rebuild: bool = False):
 
 #: A dynamic fit reports a change only where its probability is at least this.
 REPORT_THRESHOLD = 0.5
+
+#: The settings of ``align`` kept in the stored alignment parameters; the other
+#: stored keys are outcomes (:func:`reported_changes`).
+ALIGN_SETTINGS = ("weight_overlap", "link_threshold", "split_threshold", "max_gap", "draws", "seed",
+                  "include_isolates")
+
+
+def alignment_settings(params: dict | None) -> dict:
+    """The ``align`` settings among stored alignment parameters (outcomes such as the left-out changes dropped)."""
+    return {k: v for k, v in (params or {}).items() if k in ALIGN_SETTINGS}
 
 
 def reported_changes(moves: pd.DataFrame, params: dict) -> pd.DataFrame:
