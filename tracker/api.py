@@ -640,7 +640,11 @@ class Study:
         id.  Each move's ``confidence`` is the probability that it is real,
         learned on ``draws`` studies simulated from the fit and refitted with
         its own procedure (:func:`tracker.pipeline.calibration.calibrated_confidence`);
-        ``draws=0`` skips it.  Moves into or out of the no-tie track (0) are
+        ``draws=0`` skips it.  For a dynamic fit the confidence is the model's
+        posterior change probability, recalibrated on ``2 * draws`` simulated
+        studies by an isotonic map (raw, uncalibrated, with ``draws=0``), and
+        only changes with probability >= 0.5 are reported; the others are
+        listed by :meth:`uncertain_changes`.  Moves into or out of the no-tie track (0) are
         left out unless ``include_isolates``: in sparse data an actor with no
         event in one year has not changed role.
 
@@ -663,7 +667,8 @@ class Study:
         if names_from is not None:
             carried = self._carry_names_from(source, fit_id)
         return {"fit": fit_id, "tracks": self.tracks(fit_id), "moves": self.store.moves(fit_id),
-                "periods": len(order), "new_periods": len(order) - done, "names_carried": carried}
+                "periods": len(order), "new_periods": len(order) - done, "names_carried": carried,
+                "uncertain_changes": int(params.get("uncertain_changes_count", 0))}
 
     def _carry_names_from(self, source: int, fit_id: int) -> dict:
         """Names of ``source``'s tracks given to ``fit_id``'s best-overlapping tracks (its own names kept)."""
@@ -702,7 +707,11 @@ class Study:
         periods = aligned_inputs(self.store, fit_id)
         alignment = stored_alignment(self.store, fit_id, [p.period for p in periods])
         params = self.store.alignment_params(fit_id) or {}
-        result = calibration_check(self.store, info, periods, alignment, self.store.moves(fit_id), studies=studies,
+        moves = self.store.moves(fit_id)
+        left_out = self.uncertain_changes(fit_id)
+        if len(left_out):  # a dynamic fit's unreported candidates are planted with their probability too
+            moves = pd.concat([moves, left_out], ignore_index=True)
+        result = calibration_check(self.store, info, periods, alignment, moves, studies=studies,
                                    seed=info["seed"] if seed is None else seed, align_params=params)
         result["fit"] = fit_id
         self.store.save_calibration(fit_id, result)
@@ -736,6 +745,19 @@ class Study:
         moves["from_name"] = moves["from_track"].map(names)
         moves["to_name"] = moves["to_track"].map(names)
         return moves
+
+    def uncertain_changes(self, fit: int | None = None) -> pd.DataFrame:
+        """Candidate changes a dynamic fit did not report (probability of a change below 0.5).
+
+        Columns as :meth:`moves` (``actor, from_period, to_period, from_track,
+        to_track, confidence``); empty for other methods
+        (:func:`tracker.pipeline.tracking.reported_changes`).
+        """
+        fit_id = self.store.current_fit(fit)["id"]
+        self._require_alignment(fit_id)
+        rows = (self.store.alignment_params(fit_id) or {}).get("uncertain_changes") or []
+        return pd.DataFrame(rows, columns=["actor", "from_period", "to_period", "from_track", "to_track",
+                                           "confidence"])
 
     def transitions(self, fit: int | None = None, *, include_isolates: bool = True) -> pd.DataFrame:
         """Transition counts and row shares between tracks, per step and pooled ("all")."""
@@ -900,7 +922,13 @@ class Study:
             meta["calibration"] = check
         alignment = self.store.alignment_params(fit_id)
         if alignment:
-            meta["alignment"] = ", ".join(f"{k}={v}" for k, v in alignment.items())
+            from tracker.pipeline.tracking import alignment_settings
+
+            meta["alignment"] = ", ".join(f"{k}={v}" for k, v in alignment_settings(alignment).items())
+            if "confidence" in alignment:
+                meta["alignment"] += (f"; move confidence: {alignment['confidence']}; "
+                                      f"{alignment.get('uncertain_changes_count', 0)} candidate changes with "
+                                      "probability below 0.5 not reported")
         return tables, periods, meta
 
     def report(self, path: str | os.PathLike, *, fit: int | None = None, anonymise: bool = False,

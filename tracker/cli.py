@@ -660,6 +660,10 @@ def align(ctx, fit_id, overlap_weight, link_threshold, split_threshold, max_gap,
         f"{int((result['tracks']['track'] > 0).sum())} tracks, {len(moves)} moves"
         + (f" ({low} with confidence below 0.5)" if draws and len(moves) else "")
     )
+    left_out = int(result.get("uncertain_changes", 0))
+    if left_out:
+        click.echo(f"{left_out} candidate changes with probability below 0.5 not reported as moves "
+                   "(roletrail export uncertain-changes)")
     _emit(result["tracks"], "table", None, title="Tracks")
 
 
@@ -770,7 +774,7 @@ def compare(ctx, fit_a, fit_b, fmt, output, part):
 
 
 EXPORTS = ("memberships", "blocks", "fit-periods", "positions-auto", "structures", "moves", "transitions", "tracks",
-           "mobility", "trajectories", "graphml")
+           "mobility", "trajectories", "graphml", "uncertain-changes")
 
 
 @main.command()
@@ -813,6 +817,8 @@ def _export_frame(study, what: str, fit_id):
         return _structures_frame(study.structures(fit=fit_id))
     if what in ("moves", "transitions", "tracks", "mobility", "trajectories"):
         return getattr(study, what)(fit_id)
+    if what == "uncertain-changes":
+        return study.uncertain_changes(fit_id)
     return study.fit_periods(fit_id)
 
 

@@ -301,7 +301,10 @@ def record(study, path: str | Path, *, report: str | None = None, title: str | N
             analysis.current_fit = fit_id
         params = study.store.alignment_params(fit_id)
         if params is not None:
-            analysis.aligns.append({"fit": fit_id, "settings": {k: v for k, v in params.items() if v is not None}})
+            from tracker.pipeline.tracking import alignment_settings
+
+            analysis.aligns.append({"fit": fit_id, "settings": {k: v for k, v in alignment_settings(params).items()
+                                                                if v is not None}})
             tracks = study.store.tracks(fit_id)
             for track, name in zip(tracks["track"], tracks["name"]):
                 if isinstance(name, str) and name:

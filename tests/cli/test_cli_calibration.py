@@ -46,3 +46,38 @@ def test_calibration_refuses_too_few_studies(tmp_path):
     db = tmp_path / "study.db"
     result = CliRunner().invoke(main, ["--db", str(db), "calibration", "--studies", "1"])
     assert result.exit_code != 0
+
+
+def test_dynamic_fit_reports_changes_at_one_half_or_more_and_exports_the_rest(tmp_path):
+    # Source: the reporting rule of the dynamic model (tracker.pipeline.tracking.reported_changes):
+    # moves are the changes of the most probable position whose probability is >= 0.5; the
+    # others are exported, never dropped silently.  Planted data: tests/helpers/planted.py.
+    csv = tmp_path / "events.csv"
+    planted_events(csv, n_actors=60, n_positions=3, n_periods=4, density_in=0.08, density_out=0.03, movers=8,
+                   seed=5)
+    db = tmp_path / "study.db"
+    _run(db, "import", str(csv), "--source", "source", "--target", "target", "--date", "date", "--undirected")
+    _run(db, "fit", "--positions", "3", "--draws", "0")
+    out = _run(db, "align", "--draws", "0")
+    left = _run(db, "export", "uncertain-changes", "--format", "json")
+    import json
+
+    rows = json.loads(left)
+    with Study(db) as study:
+        moves = study.moves()
+        fit_periods = study.fit_periods()
+        params = study.store.alignment_params(study.store.current_fit(None)["id"])
+    assert len(moves) + len(rows) > 0
+    assert (moves["confidence"] >= 0.5).all()
+    assert all(r["confidence"] < 0.5 for r in rows) and len(rows) == params["uncertain_changes_count"]
+    assert "uncalibrated" in params["confidence"]
+    if rows:
+        assert f"{len(rows)} candidate changes" in out
+    # Every candidate (reported or not) carries the fit's own posterior change probability.
+    change = {}
+    for period, diag in zip(fit_periods["period"], fit_periods["diagnostics"]):
+        values = diag if isinstance(diag, dict) else json.loads(diag or "{}")
+        change[period] = values.get("change_probability") or {}
+    for actor, to_period, conf in [(r["actor"], r["to_period"], r["confidence"]) for r in rows] + list(
+            zip(moves["actor"], moves["to_period"], moves["confidence"])):
+        assert abs(change[str(to_period)][actor] - conf) < 1e-3

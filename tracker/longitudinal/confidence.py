@@ -242,13 +242,20 @@ def true_moves_mask(moves: pd.DataFrame, truth: pd.DataFrame) -> np.ndarray:
 class MoveCalibrator:
     """Features of a move -> probability that it is real (logistic score, isotonic map).
 
+    With ``monotone=True`` the only feature is a model's own probability of
+    the move (a dynamic fit's posterior change probability), and the map is
+    one isotonic regression of "real" on it (Zadrozny & Elkan 2002): monotone,
+    so a more probable move under the model never gets a lower confidence.
+    Rows whose feature is NaN (no posterior) get NaN.
+
     ``fit(X, y)`` learns from simulated moves (``y`` real or not); with fewer
     than 3 real or 3 false moves there is nothing to separate, and every move
     gets the share of real moves (with one pseudo-move of each kind); without
     any simulated move, NaN (unknown).
     """
 
-    def __init__(self) -> None:
+    def __init__(self, monotone: bool = False) -> None:
+        self.monotone = bool(monotone)
         self.model_ = None
         self.rate_ = 0.5
 
@@ -261,7 +268,14 @@ class MoveCalibrator:
         real = np.asarray(real, dtype=bool)
         self.rate_ = (real.sum() + 0.5) / (real.size + 1.0) if real.size else float("nan")
         self.model_ = None
-        if min(real.sum(), (~real).sum()) >= 3:
+        if min(real.sum(), (~real).sum()) >= 3 and self.monotone:
+            from sklearn.isotonic import IsotonicRegression
+
+            x = np.asarray(features, dtype=np.float64)[:, 0]
+            ok = np.isfinite(x)
+            self.model_ = IsotonicRegression(y_min=0.0, y_max=1.0, increasing=True,
+                                             out_of_bounds="clip").fit(x[ok], real[ok].astype(np.float64))
+        elif min(real.sum(), (~real).sum()) >= 3:
             base = make_pipeline(StandardScaler(), LogisticRegression(max_iter=1000))
             self.model_ = CalibratedClassifierCV(base, method="isotonic", cv=3).fit(features, real)
         return self
@@ -272,6 +286,13 @@ class MoveCalibrator:
             return np.zeros(0)
         if self.model_ is None:
             return np.full(features.shape[0], self.rate_)
+        if self.monotone:
+            x = features[:, 0]
+            out = np.full(x.size, np.nan)
+            ok = np.isfinite(x)
+            if ok.any():
+                out[ok] = self.model_.predict(x[ok])
+            return np.clip(out, 0.0, 1.0)
         return np.clip(self.model_.predict_proba(features)[:, 1], 0.0, 1.0)
 
 

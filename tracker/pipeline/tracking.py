@@ -11,7 +11,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-__all__ = ["align_fit", "dynamic_move_confidence", "aligned_inputs", "stored_alignment", "move_confidence_of", "identity_alignment",
+__all__ = ["align_fit", "dynamic_move_confidence", "reported_changes", "REPORT_THRESHOLD",
+           "ALIGN_SETTINGS", "alignment_settings", "aligned_inputs", "stored_alignment", "move_confidence_of", "identity_alignment",
            "carry_track_ids", "track_names"]
 
 
@@ -49,11 +50,62 @@ def align_fit(store, info: dict, params: dict, *, rebuild: bool = False):
     moves = moves[["actor", "from_period", "to_period", "from_track", "to_track"]].copy()
     moves["confidence"] = np.nan
     if joint and len(moves):
-        moves["confidence"] = dynamic_move_confidence(store.fit_periods(fit_id), moves)
+        if params["draws"]:
+            moves["confidence"] = move_confidence_of(store, info, periods, alignment, moves, params["draws"],
+                                                     params["seed"], params)
+        else:
+            moves["confidence"] = dynamic_move_confidence(store.fit_periods(fit_id), moves)
     elif params["draws"] and len(moves):
         moves["confidence"] = move_confidence_of(store, info, periods, alignment, moves, params["draws"], params["seed"],
                                                  params)
+    if joint:
+        moves = reported_changes(moves, params)
     return alignment, moves, order, done
+
+
+#: A dynamic fit reports a change only where its probability is at least this.
+REPORT_THRESHOLD = 0.5
+
+#: The settings of ``align`` kept in the stored alignment parameters; the other
+#: stored keys are outcomes (:func:`reported_changes`).
+ALIGN_SETTINGS = ("weight_overlap", "link_threshold", "split_threshold", "max_gap", "draws", "seed",
+                  "include_isolates")
+
+
+def alignment_settings(params: dict | None) -> dict:
+    """The ``align`` settings among stored alignment parameters (outcomes such as the left-out changes dropped)."""
+    return {k: v for k, v in (params or {}).items() if k in ALIGN_SETTINGS}
+
+
+def reported_changes(moves: pd.DataFrame, params: dict) -> pd.DataFrame:
+    """The moves a dynamic fit reports: those whose probability of a change is >= 0.5.
+
+    Every change of the most probable position is a candidate; one whose
+    confidence is below :data:`REPORT_THRESHOLD` is more likely noise than a
+    move, so it is not reported (on sparse data this is what keeps move
+    precision high).  The candidates left out are not hidden: their number
+    and the list (``actor, from_period, to_period, from_track, to_track,
+    confidence``) go into ``params`` (stored with the alignment, shown by
+    ``roletrail alignment``-style readers as ``uncertain_changes``), and
+    ``params["confidence"]`` says what the confidence is: calibrated on
+    simulated studies (``draws > 0``) or the raw posterior, uncalibrated
+    (``draws = 0``).  Moves without a confidence (NaN: legacy fits) are kept.
+    """
+    conf = moves["confidence"].to_numpy(dtype=np.float64)
+    drop = np.isfinite(conf) & (conf < REPORT_THRESHOLD)
+    params["confidence"] = (
+        f"calibrated: posterior change probability mapped to the share of real moves on {max(int(params['draws']), 2)} "
+        "x 2 studies simulated from the fit (isotonic regression)" if params["draws"]
+        else "raw posterior change probability of the dynamic model (mean-field, plug-in parameters), uncalibrated: "
+             "no simulation was run (draws 0); it is over-confident on sparse data")
+    params["report_threshold"] = REPORT_THRESHOLD
+    dropped = moves[drop]
+    params["uncertain_changes_count"] = int(drop.sum())
+    params["uncertain_changes"] = [
+        {"actor": str(r.actor), "from_period": str(r.from_period), "to_period": str(r.to_period),
+         "from_track": int(r.from_track), "to_track": int(r.to_track), "confidence": round(float(r.confidence), 4)}
+        for r in dropped.itertuples(index=False)]
+    return moves[~drop].reset_index(drop=True)
 
 
 def dynamic_move_confidence(fit_periods: pd.DataFrame, moves: pd.DataFrame) -> np.ndarray:
