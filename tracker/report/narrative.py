@@ -279,7 +279,7 @@ def _track_text(track: object, names: dict[int, str], *, long: bool = False) -> 
     number = int(track)  # type: ignore[arg-type]
     if number == 0:
         return "the no-tie group"
-    if number in names:
+    if number in names and names[number] != f"T{number}":
         return f"{names[number]} (T{number})" if long else names[number]
     return f"T{number}"
 
