@@ -13,6 +13,7 @@ from hypothesis import strategies as st
 from scipy.spatial.distance import euclidean, pdist, squareform
 from sklearn.metrics import adjusted_rand_score
 
+from tests.helpers.partitions import set_partitions
 from tracker.blockmodel.equivalence import (
     maximal_regular_partition,
     rege_similarities,
@@ -20,7 +21,6 @@ from tracker.blockmodel.equivalence import (
     structural_distances,
 )
 from tracker.errors import UsageError
-
 
 # ---------------------------------------------------------------------------
 # builders
@@ -196,19 +196,6 @@ def test_measures_follow_a_relabelling_of_actors(rel, rnd):
 # maximal regular equivalence
 
 
-def _set_partitions(n):
-    """All partitions of range(n) as restricted growth strings (brute force)."""
-
-    def grow(prefix, top):
-        if len(prefix) == n:
-            yield np.array(prefix)
-            return
-        for label in range(top + 2):
-            yield from grow(prefix + [label], max(top, label))
-
-    yield from grow([0], 0) if n else iter([np.zeros(0, dtype=int)])
-
-
 def _is_regular(labels, mats, dirs):
     """White & Reitz (1983) definition, checked pair by pair (brute force)."""
     n = labels.size
@@ -238,7 +225,7 @@ def test_maximal_regular_partition_is_the_coarsest_regular_one(seed):
     mats, dirs = _random_relations(rng, n, int(rng.integers(1, 3)), density=float(rng.choice([0.2, 0.35, 0.5])))
     ours = maximal_regular_partition(mats, dirs)
     assert _is_regular(ours, mats, dirs)
-    regular = [p for p in _set_partitions(n) if _is_regular(p, mats, dirs)]
+    regular = [p for p in set_partitions(n) if _is_regular(p, mats, dirs)]
     assert all(_refines(p, ours) for p in regular)
     coarsest = min(regular, key=lambda p: p.max())
     # Both labelings are numbered by first appearance, so they compare directly.

@@ -15,19 +15,9 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
+from tests.helpers.partitions import set_partitions
 from tracker.blockmodel.equivalence import rege_similarities
 from tracker.blockmodel.optimize import partition_cost
-
-
-def _set_partitions(n: int):
-    """Every partition of range(n) as labels numbered by first appearance (restricted growth strings)."""
-    def grow(prefix, top):
-        if len(prefix) == n:
-            yield np.array(prefix)
-            return
-        for label in range(top + 2):
-            yield from grow(prefix + [label], max(top, label))
-    yield from grow([0], 0)
 
 
 def _regular(labels, relations) -> bool:
@@ -43,7 +33,7 @@ def _regular(labels, relations) -> bool:
 
 
 def _coarsest_regular(relations, n):
-    regular = [p for p in _set_partitions(n) if _regular(p, relations)]
+    regular = [p for p in set_partitions(n) if _regular(p, relations)]
     best = min(regular, key=lambda p: p.max())
     # it is the maximum: every regular partition refines it
     for p in regular:

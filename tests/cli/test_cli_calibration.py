@@ -15,15 +15,21 @@ def _run(db, *args):
     return result.output
 
 
+def _planted_study(tmp_path, *, density_in: float, movers: int, seed: int):
+    """A study of 60 actors, 3 planted positions over 4 periods (tests/helpers/planted.py), imported."""
+    csv = tmp_path / "events.csv"
+    planted_events(csv, n_actors=60, n_positions=3, n_periods=4, density_in=density_in, density_out=0.03,
+                   movers=movers, seed=seed)
+    db = tmp_path / "study.db"
+    _run(db, "import", str(csv), "--source", "source", "--target", "target", "--date", "date", "--undirected")
+    return db
+
+
 def test_calibration_command_stores_reliability_bins_and_ece(tmp_path):
     # Source: planted dynamic blockmodel (tests/helpers/planted.py); the stored check must hold
     # 5 equal-width bins whose move counts add up to the moves checked, and an ECE in [0, 1]
     # equal to its definition recomputed from those bins (Naeini et al. 2015).
-    csv = tmp_path / "events.csv"
-    planted_events(csv, n_actors=60, n_positions=3, n_periods=4, density_in=0.2, density_out=0.03, movers=6,
-                   seed=4)
-    db = tmp_path / "study.db"
-    _run(db, "import", str(csv), "--source", "source", "--target", "target", "--date", "date", "--undirected")
+    db = _planted_study(tmp_path, density_in=0.2, movers=6, seed=4)
     _run(db, "fit", "--positions", "3", "--draws", "0", "--smooth", "off")
     _run(db, "align", "--draws", "2")
     out = _run(db, "calibration", "--studies", "4", "--seed", "3")
@@ -52,11 +58,7 @@ def test_dynamic_fit_reports_changes_at_one_half_or_more_and_exports_the_rest(tm
     # Source: the reporting rule of the dynamic model (tracker.pipeline.tracking.reported_changes):
     # moves are the changes of the most probable position whose probability is >= 0.5; the
     # others are exported, never dropped silently.  Planted data: tests/helpers/planted.py.
-    csv = tmp_path / "events.csv"
-    planted_events(csv, n_actors=60, n_positions=3, n_periods=4, density_in=0.08, density_out=0.03, movers=8,
-                   seed=5)
-    db = tmp_path / "study.db"
-    _run(db, "import", str(csv), "--source", "source", "--target", "target", "--date", "date", "--undirected")
+    db = _planted_study(tmp_path, density_in=0.08, movers=8, seed=5)
     _run(db, "fit", "--positions", "3", "--draws", "0")
     out = _run(db, "align", "--draws", "0")
     left = _run(db, "export", "uncertain-changes", "--format", "json")

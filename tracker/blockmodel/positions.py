@@ -38,7 +38,7 @@ from tracker.blockmodel.partition import Partition
 from tracker.blockmodel.selection import AUTO_RULE, MIN_GAIN, choose_k
 from tracker.errors import UsageError
 
-__all__ = ["METHODS", "METHOD_OPTIONS", "register_method", "find_positions"]
+__all__ = ["METHODS", "METHOD_OPTIONS", "register_method", "find_positions", "tied_actors"]
 
 # Options that hold one value per actor: find_positions cuts them down to the
 # tied actors before handing them to the method.
@@ -251,7 +251,7 @@ def find_positions(
     cls = METHODS[method]
 
     n = matrices[0].shape[0]
-    tied = _tied(matrices, n)
+    tied = tied_actors(matrices, n)
     index = np.flatnonzero(tied)
     m = index.size
     sub = [mat[index][:, index] for mat in matrices]
@@ -283,8 +283,10 @@ def find_positions(
     return Partition(labels, n_total, partition.isolates, diagnostics)
 
 
-def _tied(matrices, n: int) -> np.ndarray:
-    """Actors with at least one tie sent or received in any relation."""
+def tied_actors(matrices, n: int | None = None) -> np.ndarray:
+    """Actors with at least one tie sent or received in any relation (zeros and self-ties ignored)."""
+    if n is None:
+        n = matrices[0].shape[0] if len(matrices) else 0
     mask = np.zeros(n, dtype=bool)
     for mat in matrices:
         coo = sp.coo_array(mat)

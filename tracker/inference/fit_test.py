@@ -87,6 +87,8 @@ from typing import Sequence
 import numpy as np
 import scipy.sparse as sp
 
+from tracker.blockmodel.positions import tied_actors
+
 __all__ = [
     "NULL_MODELS",
     "DEFAULT_NULL",
@@ -233,17 +235,6 @@ def period_seed(seed: int, period: str) -> int:
 # --------------------------------------------------------------------------- null draws
 
 
-def _tied_actors(matrices: Sequence[sp.sparray]) -> np.ndarray:
-    n = matrices[0].shape[0] if matrices else 0
-    tied = np.zeros(n, dtype=bool)
-    for m in matrices:
-        coo = sp.coo_array(m)
-        keep = (coo.data != 0) & (coo.row != coo.col)
-        tied[coo.row[keep]] = True
-        tied[coo.col[keep]] = True
-    return tied
-
-
 def _ties_of(matrix: sp.sparray, is_directed: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     coo = sp.coo_array(matrix)
     keep = (coo.data != 0) & (coo.row != coo.col)
@@ -338,7 +329,7 @@ def tied_statistic(matrices: Sequence[sp.sparray], directed: Sequence[bool], pro
     from tracker.blockmodel.goodness import density_correlation
     from tracker.blockmodel.partition import Partition
 
-    tied = _tied_actors(matrices)
+    tied = tied_actors(matrices)
     if tied.sum() < 2:
         return float("nan")
     idx = np.flatnonzero(tied)
@@ -379,7 +370,7 @@ def _prepare(matrices, directed):
     n = matrices[0].shape[0]
     if any(m.shape != (n, n) for m in matrices):
         raise ValueError("every relation's matrix must be square and over the same actors")
-    idx = np.flatnonzero(_tied_actors(matrices))
+    idx = np.flatnonzero(tied_actors(matrices))
     return [m[idx][:, idx] for m in matrices], directed
 
 
