@@ -897,8 +897,12 @@ class Study:
                              "inconsistencies": row.inconsistencies,
                              "density_correlation": row.density_correlation, "chosen": True})
         tables["diagnostics"] = pd.DataFrame(diag)
-        tables["permutation"] = with_q_values(fp)[["period", "density_correlation", "p_value", "q_value"]].rename(
-            columns={"density_correlation": "observed"})
+        # "observed" is the statistic the p-value tests: the density correlation over the
+        # actors with a tie (tracker.inference.fit_test), not the table's all-actor value
+        tables["permutation"] = with_q_values(fp)[["period", "p_value", "q_value"]]
+        tables["permutation"].insert(1, "observed", [
+            (d.get("fit_test") or {}).get("observed") if isinstance(d, dict) else None for d in fp["diagnostics"]])
+        tables["permutation"]["observed"] = pd.to_numeric(tables["permutation"]["observed"], errors="coerce")
         structures = self.structures(fit=fit_id, draws=structure_draws, snapshots=snapshots)
         tables["structures"] = structures.drop(columns=["parts"], errors="ignore")
         tables["structure_sentences"] = self.structure_sentences(structures)

@@ -711,7 +711,11 @@ def fit_chart(
     ``k`` tried in each period; large points mark the ``k`` that was chosen.
     Right: the fit-test p-value of each period (the share of null-model
     networks on which the same method fits at least as well; see
-    :mod:`tracker.inference.fit_test`); the rule is the 0.05 level.
+    :mod:`tracker.inference.fit_test`); the rule is the 0.05 level.  Its
+    tooltip shows the test's statistic, the density correlation over the
+    actors with at least one tie (isolates left out, as in the test), which
+    differs from the left panel's and the fit table's all-actor value when a
+    period has isolates.
     """
     panels = []
     order = _periods(periods) if periods is not None else None
@@ -767,7 +771,7 @@ def fit_chart(
                                             range=["#0072b2", "#d55e00"])),
             tooltip=[
                 alt.Tooltip("period:N", title="Period"),
-                alt.Tooltip("observed:Q", title="Observed fit", format=".3f"),
+                alt.Tooltip("observed:Q", title="Density correlation, actors with a tie", format=".3f"),
                 alt.Tooltip("p_value:Q", title="p-value", format=".3f"),
             ],
         )
