@@ -172,7 +172,7 @@ _ENTRIES = (
         ("Efron, B. (1979). Bootstrap methods: another look at the jackknife. Annals of Statistics 7, 1-26",
          _MM,
          "DeGroot, M. H. & Fienberg, S. E. (1983). The comparison and evaluation of forecasters. "
-         "The Statistician 32, 12-22 (calibration; cited from memory)"),
+         "The Statistician 32, 12-22 (calibration; title and authors verified, volume and pages cited from memory)"),
         also=("move confidence", "calibration", "posterior", "bootstrap"),
         see=("move", "track", "smoothing"),
     ),

@@ -31,7 +31,7 @@ import scipy.sparse as sp
 from scipy import stats as sps
 
 from tracker.blockmodel.blocks import block_stats
-from tracker.blockmodel.goodness import density_correlation
+from tracker.blockmodel.goodness import density_correlation, inconsistencies
 from tracker.blockmodel.image import BACKGROUND_LEVEL, image
 from tracker.blockmodel.partition import Partition
 from tracker.structures.coreperiphery import discrete_core_periphery
@@ -205,6 +205,30 @@ def test_karate_normalised_inconsistencies_counted_cell_by_cell():
     # imitation: the raw counts (not divided by the block's cells) are another number
     raw = (stats.possible[0] - stats.ties[0]).trace() + 2 * stats.ties[0, 0, 1]
     assert abs(raw - fit.mismatches) > 1
+
+
+def test_karate_inconsistencies_with_each_image_counted_cell_by_cell():
+    # Source: the criterion function of Doreian, Batagelj & Ferligoj (2005, Cambridge
+    # UP; chapter and page from memory): missing ties of blocks imaged 1 plus present
+    # ties of blocks imaged 0, each unordered pair once; counted here on the adjacency
+    # matrix pair by pair for the images of the published split.
+    graph, labels = _karate()
+    adj = nx.to_numpy_array(graph, nodelist=sorted(graph), weight=None)
+    rows, cols = np.triu_indices(34, 1)
+    tie = adj[rows, cols] == 1
+    stats = _stats(graph, labels)
+    for criterion in ("zero-block", "one-block", "density"):
+        img = image(stats, criterion)
+        one = img[0][labels[rows], labels[cols]] == 1
+        expected = int(np.sum(one & ~tie) + np.sum(~one & tie))
+        assert inconsistencies(stats, img).tolist() == [expected], criterion
+    # worked out: zero-block images every block 1, so every absent pair counts:
+    # 561 - 78 = 483; alpha density: (136 - 35) + (136 - 32) absent inside + 11 across
+    assert inconsistencies(stats, image(stats, "zero-block")).tolist() == [483]
+    assert inconsistencies(stats, image(stats, "density")).tolist() == [216]
+    # imitation: counting the ordered pairs of an undirected relation doubles it
+    ordered = np.where(image(stats, "density")[0] == 1, stats.possible[0] - stats.ties[0], stats.ties[0]).sum()
+    assert ordered != 216
 
 
 def test_karate_factions_are_named_cohesive_subgroups():

@@ -159,7 +159,9 @@ def test_rates_are_block_densities():
 
 
 def test_karate_club_degree_corrected_recovers_factions():
-    # source: Karrer & Newman (2011), their karate-club figure (cited from memory):
+    # source: Karrer & Newman (2011), Phys. Rev. E 83, 016107 (citation and the abstract's
+    # claim, that the degree-corrected model "dramatically outperforms the uncorrected one"
+    # on real-world networks, verified; the karate-club figure's content cited from memory):
     # with degree correction the best two-position fit of Zachary's karate club
     # is the split into the two factions; without it the fit separates busy from
     # quiet members.

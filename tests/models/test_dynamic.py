@@ -309,8 +309,8 @@ def test_change_probability_is_consistent_with_marginals_and_finds_a_planted_mov
 def test_recovery_below_near_and_above_the_dynamic_detectability_limit(snr, low, high):
     # source: Ghasemian, Zhang, Clauset, Moore & Peel (2016), Phys. Rev. X 6, 031005: for two
     # groups, stay probability eta and T -> infinity, positions are detectable iff
-    # c lambda^2 > (1 - eta^2) / (1 + eta^2) = 0.105 at eta = 0.9 (their eq. for the
-    # dynamic limit, from memory).  Below it (0.03) no method recovers them (mean ARI ~ 0);
+    # c lambda^2 > (1 - eta^2) / (1 + eta^2) = 0.105 at eta = 0.9 (their limit for T = infinity;
+    # the formula verified against the first author's summary of the paper).  Below it (0.03) no method recovers them (mean ARI ~ 0);
     # near it (0.7: below the one-period limit 1, where each period alone is undetectable)
     # recovery is partial but real; far above (3.0) it is near perfect.  Measured with
     # n = 300, 6 periods, seed 11: ARI 0.00, 0.61, 0.99+.  At this finite size variational EM

@@ -61,10 +61,16 @@ References
 .. [2] White, H. C., Boorman, S. A. & Breiger, R. L. (1976). Social structure from
    multiple networks I. Am. J. Sociology 81, 730-780.
 .. [4] Ziberna, A. (2007). Generalized blockmodeling of valued networks. Social
-   Networks 29, 105-126 (cited from memory).
+   Networks 29, 105-126 (journal, volume and pages cited from memory; the
+   author's 2007 University of Ljubljana doctoral thesis of the same title
+   was verified to exist).
 .. [3] Doreian, P., Batagelj, V. & Ferligoj, A. (2005). Generalized Blockmodeling.
-   Cambridge University Press (block types and their inconsistencies, ch. 6-7;
-   chapter numbers cited from memory).
+   Cambridge University Press, ISBN 0521840856 (verified) (block types and their
+   inconsistencies, ch. 6-7; chapter numbers cited from memory).
+.. [5] Cugmas, M., Ferligoj, A. & Ziberna, A. (2018). Generating global network
+   structures by triad types. PLoS ONE, doi:10.1371/journal.pone.0197514
+   (verified: the same family of global structures, "cohesive,
+   core-periphery, hierarchical, and transitivity" blockmodels).
 """
 
 from __future__ import annotations
@@ -340,8 +346,8 @@ def density_image(ties, possible, *, relative: bool = True) -> np.ndarray:
     With ``relative`` (default) the densities are divided by the relation's
     largest block density, so the densest block counts as complete: the
     normalised inconsistencies of valued generalized blockmodeling with the
-    level ``m`` of a "tie block" set to the densest block (Ziberna 2007,
-    cited from memory).  In sparse data, where no block is near complete, the
+    level ``m`` of a "tie block" set to the densest block (Ziberna 2007;
+    the parameter's role cited from memory).  In sparse data, where no block is near complete, the
     absolute densities would make every ideal with 1-blocks fit badly and
     the best ideal would be the one with the fewest 1s; relative to the
     densest block the pattern of dense and empty blocks is what is judged.
