@@ -887,7 +887,7 @@ class Study:
             tables["transitions"] = transitions(members, periods)  # as self.transitions, without a second read
         tables["blocks"] = blocks
         fp = self.store.fit_periods(fit_id)
-        diag = []
+        diag, fitted_relations = [], self.store.relations()
         for row in fp.itertuples(index=False):
             auto = row.diagnostics.get("auto") if isinstance(row.diagnostics, dict) else None
             if auto:
@@ -895,7 +895,8 @@ class Study:
             else:
                 diag.append({"period": row.period, "k": row.positions - (0 if pd.isna(row.isolates_position) else 1),
                              "inconsistencies": row.inconsistencies,
-                             "density_correlation": row.density_correlation, "chosen": True})
+                             "density_correlation": _tied_correlation(blocks, row, fitted_relations),
+                             "chosen": True})
         tables["diagnostics"] = pd.DataFrame(diag)
         # "observed" is the statistic the p-value tests: the density correlation over the
         # actors with a tie (tracker.inference.fit_test), not the table's all-actor value
@@ -1012,3 +1013,25 @@ def _track_table(tracks: pd.DataFrame, members: pd.DataFrame) -> pd.DataFrame:
                       for t, n, iso in zip(tracks["track"], tracks["name"], tracks["isolates"])]
     return tracks
 
+
+def _tied_correlation(blocks: pd.DataFrame, row, relations) -> float:
+    """A period's density correlation over the actors with a tie, from its stored block table.
+
+    As the ``auto`` entries of the fit chart and the fit test compute it; the
+    fit table's ``density_correlation`` keeps the isolates' position.
+    """
+    if pd.isna(row.isolates_position):
+        return row.density_correlation
+    from tracker.blockmodel.goodness import density_correlation_of_tables
+
+    part = blocks[blocks["period"] == row.period]
+    directed = {r.name: bool(r.directed) for r in relations}
+    names = list(dict.fromkeys(part["relation"]))
+    n_pos = int(row.positions)
+    shape = (len(names), n_pos, n_pos)
+    ties, possible = np.zeros(shape), np.zeros(shape)
+    at = (part["relation"].map(names.index).to_numpy(), part["from_position"].to_numpy(int) - 1,
+          part["to_position"].to_numpy(int) - 1)
+    ties[at], possible[at] = part["ties"].to_numpy(float), part["possible"].to_numpy(float)
+    return density_correlation_of_tables(ties, possible, [directed[n] for n in names],
+                                         leave_out=int(row.isolates_position) - 1)

@@ -147,7 +147,7 @@ _ENTRIES = (
         "tied, 0 if not) and the density of the block the pair falls into. It is 1 when every block is either "
         "all ties or no ties, and near 0 when knowing two actors' positions tells you nothing about whether "
         "they are tied. The fit table reports it over every actor present (the isolates' own position "
-        "included); the fit test, and the report's fit-test panel, compute it over the actors with at least "
+        "included); the fit test and the report's fit chart compute it over the actors with at least "
         "one tie, so the two differ in a period with isolates.",
         "r = Pearson correlation, over all pairs i ≠ j and all relations, between x_ij (1 if i is tied to j, "
         "else 0) and d_φ(i)φ(j), the density of the block of i's and j's positions.",

@@ -12,7 +12,13 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from tracker.blockmodel.blocks import block_stats
-from tracker.blockmodel.goodness import density_correlation, fit_summary, inconsistencies, permutation_test
+from tracker.blockmodel.goodness import (
+    density_correlation,
+    density_correlation_of_tables,
+    fit_summary,
+    inconsistencies,
+    permutation_test,
+)
 from tracker.blockmodel.image import image
 from tracker.blockmodel.partition import Partition
 from tracker.errors import UsageError
@@ -180,3 +186,25 @@ def test_fit_summary():
     stats = block_stats([a], [False], part)
     assert summary["density_correlation"] == density_correlation(stats)
     assert inconsistencies(stats, image(stats, "zero-block")).tolist() == [1]
+
+
+@pytest.mark.parametrize("directed", [True, False])
+def test_density_correlation_of_tables_without_the_isolates_position(directed):
+    # Source: the definition recomputed on the tied actors alone (block_stats of the
+    # sub-network): leaving the isolates' position out of the tables is the same.
+    rng = np.random.default_rng(4)
+    a = (rng.random((12, 12)) < 0.3).astype(float)
+    a[9:, :] = a[:, 9:] = 0  # actors 9-11 have no tie
+    np.fill_diagonal(a, 0)
+    if not directed:
+        a = np.triu(a) + np.triu(a).T
+    labels = np.array([0, 0, 0, 1, 1, 1, 2, 2, 2, 3, 3, 3])
+    stats = block_stats([sp.csr_array(a)], [directed], Partition(labels, 4))
+    tied = block_stats([sp.csr_array(a[:9, :9])], [directed], Partition(labels[:9], 3))
+    got = density_correlation_of_tables(stats.ties, stats.possible, [directed], leave_out=3)
+    assert got == pytest.approx(density_correlation(tied), abs=1e-12)
+    assert density_correlation_of_tables(stats.ties, stats.possible, [directed]) == pytest.approx(
+        density_correlation(stats), abs=1e-12)
+    assert abs(density_correlation(stats) - got) > 1e-3  # the isolates' empty blocks change it
+    with pytest.raises(ValueError):
+        density_correlation_of_tables(stats.ties[0], stats.possible[0], [directed])

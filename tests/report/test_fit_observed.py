@@ -1,9 +1,10 @@
-"""The fit chart's "observed" series is the fit test's statistic (actors with a tie only)."""
+"""The fit chart's correlations are the fit test's statistic (actors with a tie only)."""
 
 from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+import pytest
 import scipy.sparse as sp
 
 from tests.cli.test_cli_fit import planted_events
@@ -37,6 +38,7 @@ def test_fit_chart_observed_leaves_isolates_out(tmp_path):
         members = study.memberships()
         snaps = {p: study.snapshot(p) for p in periods}
     observed = tables["permutation"].set_index("period")["observed"]
+    left = tables["diagnostics"].set_index("period")["density_correlation"]
     for period in periods:
         snap = snaps[period]
         part = members[members["period"] == period].set_index("actor").loc[list(snap.actors)]
@@ -47,6 +49,7 @@ def test_fit_chart_observed_leaves_isolates_out(tmp_path):
         mats = [sp.csr_array(m)[idx][:, idx] for m in snap.matrices]
         expected = density_correlation(block_stats(mats, snap.directed, Partition(labels, int(labels.max()) + 1)))
         assert observed[period] == expected
+        assert left[period] == pytest.approx(expected, abs=1e-12)  # the left panel: same actors
         # the table's value includes the isolates' empty blocks and is another number
         assert abs(fits.loc[period, "density_correlation"] - expected) > 1e-6
     spec = charts.fit_chart(tables["diagnostics"], tables["permutation"], periods).to_dict()

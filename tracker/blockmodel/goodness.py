@@ -41,6 +41,7 @@ from tracker.errors import UsageError
 __all__ = [
     "inconsistencies",
     "density_correlation",
+    "density_correlation_of_tables",
     "permutation_test",
     "fit_summary",
     "STATISTICS",
@@ -122,6 +123,34 @@ def density_correlation(stats: BlockStats) -> float:
     1.0
     """
     return _correlation(stats.ties, stats.possible, stats.directed)
+
+
+def density_correlation_of_tables(ties, possible, directed: Sequence[bool], *, leave_out: int | None = None) -> float:
+    """:func:`density_correlation` from stored block tables, optionally without one position.
+
+    ``ties`` and ``possible`` are ``(R, B, B)`` tables as in :class:`BlockStats`.
+    ``leave_out`` (0-based) drops that position's rows and columns first.  Dropping
+    the position of the actors without ties gives the statistic over the actors
+    with a tie: such actors hold no tie, so the other blocks are unchanged, and
+    only the isolates' empty blocks (which raise the correlation for reasons
+    unrelated to the tied actors' positions) go.  That is the statistic of the
+    fit test (:mod:`tracker.inference.fit_test`).
+
+    Examples
+    --------
+    >>> t = [[[2, 1, 0], [1, 0, 0], [0, 0, 0]]]; p = [[[2, 2, 4], [2, 0, 2], [4, 2, 2]]]
+    >>> round(density_correlation_of_tables(t, p, [True]), 3), round(
+    ...     density_correlation_of_tables(t, p, [True], leave_out=2), 3)
+    (0.829, 0.5)
+    """
+    t = np.asarray(ties, dtype=np.float64)
+    p = np.asarray(possible, dtype=np.float64)
+    if t.shape != p.shape or t.ndim != 3 or t.shape[1] != t.shape[2] or t.shape[0] != len(directed):
+        raise ValueError("ties and possible must be (R, B, B) tables with one directed flag per relation")
+    if leave_out is not None:
+        keep = np.arange(t.shape[1]) != int(leave_out)
+        t, p = t[:, keep][:, :, keep], p[:, keep][:, :, keep]
+    return _correlation(t, p, directed)
 
 
 def permutation_test(

@@ -712,10 +712,10 @@ def fit_chart(
     Right: the fit-test p-value of each period (the share of null-model
     networks on which the same method fits at least as well; see
     :mod:`tracker.inference.fit_test`); the rule is the 0.05 level.  Its
-    tooltip shows the test's statistic, the density correlation over the
-    actors with at least one tie (isolates left out, as in the test), which
-    differs from the left panel's and the fit table's all-actor value when a
-    period has isolates.
+    tooltip shows the test's statistic.  Both panels' correlations are over
+    the actors with at least one tie (isolates left out, as in the test);
+    the fit table's ``density_correlation`` keeps the isolates' position and
+    differs from them when a period has isolates.
     """
     panels = []
     order = _periods(periods) if periods is not None else None
