@@ -30,7 +30,9 @@ import pytest
 import scipy.sparse as sp
 from scipy import stats as sps
 
+from tests.blockmodel.test_regular_definitions import _regular
 from tracker.blockmodel.blocks import block_stats
+from tracker.blockmodel.equivalence import maximal_regular_partition, structural_distances
 from tracker.blockmodel.goodness import density_correlation, inconsistencies
 from tracker.blockmodel.image import BACKGROUND_LEVEL, image
 from tracker.blockmodel.partition import Partition
@@ -294,3 +296,24 @@ def test_florentine_core_equals_brute_force_with_scipy():
     with np.errstate(invalid="ignore", divide="ignore"):
         r_core_only = (co @ xc) / np.sqrt((co**2).sum(axis=1) * (xc**2).sum())
     assert abs(np.nanmax(r_core_only) - reference) > 1e-3
+
+
+def test_levels_of_a_directed_hierarchy_are_its_regular_classes():
+    # Source: the definition of regular equivalence (White & Reitz 1983, Social
+    # Networks 5, 193-234), tested on the result; the levels of a chain of command
+    # as the classic example of regular but not structural equivalence (Borgatti &
+    # Everett 1992, Sociological Methodology 22; the example cited from memory).
+    # The tree is networkx's balanced_tree(2, 3), ties from each node to its children.
+    tree = nx.bfs_tree(nx.balanced_tree(2, 3), 0)
+    nodes = sorted(tree)
+    depth = nx.shortest_path_length(tree, 0)
+    levels = np.array([depth[v] for v in nodes])
+    matrix = nx.to_scipy_sparse_array(tree, nodelist=nodes, weight=None)
+    found = maximal_regular_partition([matrix], [True])
+    assert len(set(zip(found.tolist(), levels.tolist()))) == len(set(found.tolist())) == 4
+    dense = matrix.toarray()
+    assert _regular(levels, [(dense, True)])
+    for a, b in itertools.combinations(range(4), 2):  # no two levels can be merged
+        assert not _regular(np.where(levels == b, a, levels), [(dense, True)])
+    # imitation: structural equivalence splits each level by parent (siblings only)
+    assert np.unique(structural_distances([matrix], [True]).round(9), axis=0).shape[0] > 4
