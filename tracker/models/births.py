@@ -210,4 +210,5 @@ def _proposal(data, state, params, E, k, b, founders, active, B, dyn):
     pi = start_params.pi.copy()
     pi[k] = 1.0 / B
     pi /= pi.sum()
-    return start, dataclasses.replace(start_params, theta=theta, P=P, pi=pi)
+    # other settings of the fit (priors, if any) are kept from ``params``
+    return start, dataclasses.replace(params, pi=pi, P=P, theta=theta, active=active)
