@@ -39,8 +39,10 @@ also offered *merge-and-found* proposals: for each period ``b`` in which
 actors first appear (a new position needs someone to found it), and each
 position ``k``, the actor-periods of ``k`` go to their best other position
 (highest emission term given everyone else), the actors first seen in ``b``
-found ``k`` from ``b`` on, ``k`` is closed before ``b``, and EM is run.  The
-proposal is kept if its bound beats the current one by more than the prior
+found ``k`` from ``b`` on, and ``k`` is closed before ``b``.  The proposals
+are ranked by the bound of their starting (hard) assignment and EM is run from
+the best ``FOUND_TRIALS`` of them (the cost stays a few EM runs however many
+periods bring newcomers).  A proposal is kept if its bound beats the current one by more than the prior
 cost ``log(T - 1)``; the best proposal over ``(k, b)`` wins, and its birth
 period is then chosen by the criterion above.
 
@@ -63,6 +65,9 @@ __all__ = ["choose_births", "birth_cost", "occupancy", "birth_candidates"]
 
 #: Most actor-periods of posterior mass a birth may move out of a position.
 EVICT = 3.0
+
+#: Founding proposals refitted by EM (the best-ranked by their starting bound).
+FOUND_TRIALS = 3
 
 
 def birth_cost(T: int) -> float:
@@ -153,7 +158,7 @@ def _found(data, state, params, B, rng, max_iter, tol, active, current, cost, dy
     if not periods:
         return None
     E = dyn._emissions(data, state, params)
-    best = None
+    starts = []  # (bound at the start, k, b, state, params, mask)
     for k in range(B):
         for b in periods:
             trial = active.copy()
@@ -162,10 +167,15 @@ def _found(data, state, params, B, rng, max_iter, tol, active, current, cost, dy
             if (trial.sum(axis=1) == 0).any():
                 continue
             start_state, start_params = _proposal(data, state, params, E, k, b, new_at[b], trial, B, dyn)
-            result = dyn._em_loop(data, start_state, start_params, B, rng, max_iter, tol)
-            bound = float(result[2][-1])
-            if bound - current > cost and (best is None or bound > best[0]):
-                best = (bound, result, trial)
+            starts.append((dyn._elbo(data, start_state, start_params), k, b, start_state, start_params, trial))
+    # EM only from the most promising starts: the proposals' hard-assignment bounds rank them
+    starts.sort(key=lambda s: (-s[0], s[1], s[2]))
+    best = None
+    for _, k, b, start_state, start_params, trial in starts[:FOUND_TRIALS]:
+        result = dyn._em_loop(data, start_state, start_params, B, rng, max_iter, tol)
+        bound = float(result[2][-1])
+        if bound - current > cost and (best is None or bound > best[0]):
+            best = (bound, result, trial)
     return None if best is None else (best[1], best[2])
 
 
