@@ -73,13 +73,19 @@ def test_birth_candidates_refuse_bad_occupancy():
 # ------------------------------------------------------------------ the criterion on planted data
 
 
-def test_a_founded_position_is_born_in_its_founding_period():
+@pytest.fixture(scope="module")
+def founded_fits():
+    periods = founded_study(21, 0.8)
+    return (periods, DynamicSBM(4, seed=0, restarts=1).fit(periods),
+            DynamicSBM(4, seed=0, restarts=1, births=False).fit(periods))
+
+
+def test_a_founded_position_is_born_in_its_founding_period(founded_fits):
     # source: planted dynamic blockmodel (Matias & Miele 2017) with a birth.  Known limit
     # (measured, seed 21): at 0.4 inside, a quiet actor of an old group holds the new
     # position's slot from period 0 and the merge-and-found proposal gains only 0.1 nats of
     # bound, below the cost log(6); no birth is found there
-    periods = founded_study(21, 0.8)
-    fit = DynamicSBM(4, seed=0).fit(periods)
+    _, fit, _ = founded_fits
     new = fit.labels_[3][-1]
     assert fit.births_[new] == 3
     assert all((fit.labels_[t] != new).all() for t in range(3))  # closed before its birth
@@ -87,12 +93,11 @@ def test_a_founded_position_is_born_in_its_founding_period():
         assert fit.labels_[when - 1][actor] != new and fit.labels_[when][actor] == new
 
 
-def test_an_accepted_birth_pays_its_prior_cost():
+def test_an_accepted_birth_pays_its_prior_cost(founded_fits):
     # source: the criterion (module docstring): a birth is kept only if its bound beats the
     # position open from the start by more than log(T - 1)
-    periods = founded_study(21, 0.8)
-    with_births = DynamicSBM(4, seed=0).fit(periods)
-    without = DynamicSBM(4, seed=0, births=False).fit(periods)
+    # (both fits from the same single start)
+    periods, with_births, without = founded_fits
     assert (with_births.births_ > 0).sum() == 1
     assert with_births.elbo_ - without.elbo_ > births.birth_cost(len(periods))
     # the bound history never falls, births included
@@ -115,6 +120,6 @@ def test_a_newcomer_who_joins_an_old_position_founds_nothing(seed):
         rate = np.where(zt[:, None] == zt[None, :], 0.8, 0.03)
         upper = np.triu(rng.poisson(rate), 1).astype(float)
         periods.append(([names[i] for i in present], [sp.csr_array(upper + upper.T)], [False]))
-    fit = DynamicSBM(3, seed=0).fit(periods)
+    fit = DynamicSBM(3, seed=0, restarts=1).fit(periods)
     assert (fit.births_ == 0).all()
     assert fit.labels_[6][-1] == fit.labels_[6][0]
