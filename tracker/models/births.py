@@ -101,7 +101,10 @@ def choose_births(data, state, params, B: int, rng, max_iter: int, tol: float, h
     """Founding proposals, then each position's birth period by the criterion of the module docstring.
 
     Returns ``(state, params, history, births)``: ``births[k]`` is position
-    ``k``'s first open period (0: open from the start).
+    ``k``'s first open period (0: open from the start).  Each accepted change
+    raises the penalised bound :math:`\mathcal{L} - \log(T-1) \times` (number
+    of births); the bound itself can fall only when a founded position is
+    reopened from the start, by less than the cost it saves.
     """
     from tracker.models import dynamic as dyn
 
