@@ -78,7 +78,8 @@ class DynamicSBM:
         Stop when the bound rises by less than ``tol * |bound|``.
     births : bool, default True
         Let positions be born mid-series (closed in the entry and transition
-        laws before their birth period; see :func:`_choose_births`).
+        laws before their birth period; the criterion is in
+        :mod:`tracker.models.births`).
     restarts : int, default 3
         Starts: the first from a blockmodel of all periods pooled (spectral
         start, see :class:`~tracker.blockmodel.sbm.SBMPositions`), the others
