@@ -12,6 +12,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import scipy.sparse as sp
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from tracker.models import births
 from tracker.models.dynamic import DynamicSBM
@@ -52,14 +54,15 @@ def test_birth_cost_is_the_log_odds_of_the_prior():
         births.birth_cost(0)
 
 
-@pytest.mark.parametrize("seed", range(5))
-def test_birth_candidates_match_their_definition(seed):
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.sampled_from([0.0, 0.2, 0.6, 1.0, 3.0]), min_size=1, max_size=9),
+       st.sampled_from([0.0, 1.5, 3.0]))
+def test_birth_candidates_match_their_definition(occ, evict):
     # source: brute force of the definition (mass before b at most `evict`, at least
     # half an actor from b on, b >= 1)
-    rng = np.random.default_rng(seed)
-    occ = rng.choice([0.0, 0.2, 0.6, 1.0, 3.0], size=8)
-    got = births.birth_candidates(occ, evict=1.5).tolist()
-    want = [b for b in range(1, occ.size) if occ[:b].sum() <= 1.5 and occ[b:].sum() >= 0.5]
+    occ = np.array(occ)
+    got = births.birth_candidates(occ, evict=evict).tolist()
+    want = [b for b in range(1, occ.size) if occ[:b].sum() <= evict + 1e-12 and occ[b:].sum() >= 0.5]
     assert got == want
 
 

@@ -102,7 +102,7 @@ def choose_births(data, state, params, B: int, rng, max_iter: int, tol: float, h
 
     Returns ``(state, params, history, births)``: ``births[k]`` is position
     ``k``'s first open period (0: open from the start).  Each accepted change
-    raises the penalised bound :math:`\mathcal{L} - \log(T-1) \times` (number
+    raises the penalised bound :math:`\\mathcal{L} - \\log(T-1) \\times` (number
     of births); the bound itself can fall only when a founded position is
     reopened from the start, by less than the cost it saves.
     """
