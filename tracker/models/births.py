@@ -87,6 +87,11 @@ def birth_candidates(occ: np.ndarray, evict: float = EVICT) -> np.ndarray:
 
     ``b`` qualifies when at most ``evict`` actor-periods sit in the position
     before ``b`` and it holds at least half an actor from ``b`` on.
+
+    Examples
+    --------
+    >>> birth_candidates([0.0, 1.0, 0.0, 2.0, 5.0], evict=1.0).tolist()
+    [1, 2, 3]
     """
     occ = np.asarray(occ, dtype=float)
     if occ.ndim != 1 or (occ < 0).any():
