@@ -38,50 +38,72 @@ def _moved(moves: pd.DataFrame) -> dict:
     return {a: str(t) for a, t in zip(moves["actor"], moves["to_period"])}
 
 
-def test_coastal_agencies_story(tmp_path):
-    # planted in scenarios/coastal-agencies/make_data.py (JOINS_R): the office is founded in
-    # 2014; Orrin Marine Survey, Halvek Town Council and Emberlee Flood Wardens join its
-    # position in 2015, Tamsel Point Tide Observatory in 2016, Wendmouth Parish Council in 2017
-    tracks, moves, members = _demo("coastal-agencies", tmp_path)
-    office = members[members["actor"] == "Orrin Coastal Resilience Office"]
-    assert str(office["period"].min()) == "2014"  # absent before it exists: no membership, no move
+@pytest.fixture(scope="module")
+def coastal(tmp_path_factory):
+    return _demo("coastal-agencies", tmp_path_factory.mktemp("coastal"))
+
+
+#: planted in scenarios/coastal-agencies/make_data.py (JOINS_R): the office is founded in
+#: 2014; Orrin Marine Survey, Halvek Town Council and Emberlee Flood Wardens join its
+#: position in 2015, Tamsel Point Tide Observatory in 2016, Wendmouth Parish Council in 2017
+COASTAL_MOVES = {"Orrin Marine Survey": "2015", "Halvek Town Council": "2015", "Emberlee Flood Wardens": "2015",
+                 "Tamsel Point Tide Observatory": "2016", "Wendmouth Parish Council": "2017"}
+
+
+def _new_track(tracks, members, founder):
+    office = members[members["actor"] == founder]
     new_track = int(office.loc[office["period"] == office["period"].max(), "track"].iloc[0])
-    born = tracks.set_index("track").loc[new_track, "first_period"]
-    assert str(born) in ("2014", "2015")
-    joined = moves[moves["to_track"] == new_track]
-    found = _moved(joined)
-    planted = {"Orrin Marine Survey": "2015", "Emberlee Flood Wardens": "2015",
-               "Tamsel Point Tide Observatory": "2016", "Wendmouth Parish Council": "2017"}
-    for actor, period in planted.items():
-        assert found.get(actor) == period, (actor, found.get(actor))
-    # Halvek Town Council: planted in 2015, but in 2014 its ties already follow the new
-    # position's pattern (the office's planted first contacts plus three joint exercises
-    # with responders); the model dates its move to 2014 or 2015, never earlier
-    assert found.get("Halvek Town Council") in ("2014", "2015")
-    real = set(planted) | {"Halvek Town Council"}
+    return new_track, tracks.set_index("track").loc[new_track, "first_period"], office
+
+
+def test_coastal_agencies_story(coastal):
+    tracks, moves, members = coastal
+    new_track, born, office = _new_track(tracks, members, "Orrin Coastal Resilience Office")
+    assert str(office["period"].min()) == "2014"  # absent before it exists: no membership, no move
+    assert (office["track"] == new_track).all()  # it founds the new position and stays there
+    assert str(born) == "2014"  # the new track is born with the office
+    # every reported move is a recruit joining the new track, once; no other actor moves
+    assert (moves["to_track"] == new_track).all()
+    assert moves["actor"].is_unique
+    assert set(moves["actor"]) == set(COASTAL_MOVES)
+    found = _moved(moves)
+    for actor, period in COASTAL_MOVES.items():
+        if actor != "Halvek Town Council":
+            assert found[actor] == period, (actor, found[actor])
     confident = moves[moves["confidence"] >= 0.8]
-    assert set(confident["actor"]) <= real
+    assert set(confident["actor"]) <= set(COASTAL_MOVES)
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "Halvek Town Council's 2014 ties (a data-sharing event with the new office, three joint exercises "
+    "with responders, no mutual aid) favour the new position over the municipal one by about 5.8 nats at "
+    "the fitted parameters (odds about 340:1, other actors held at their posteriors), so the model dates its move 2014; the story "
+    "plants 2015 (README: 'its move may be dated 2014')"))
+def test_coastal_agencies_halvek_is_dated_as_planted(coastal):
+    tracks, moves, members = coastal
+    assert _moved(moves).get("Halvek Town Council") == COASTAL_MOVES["Halvek Town Council"]
 
 
 def test_coalition_survey_story(tmp_path):
     # planted in scenarios/coalition-survey/make_data.py: Southgate Allotment Society joins the
     # core in wave 2, Millpond Arts Collective in wave 3, Hillcrest Parents Network in wave 4;
-    # the health working group forms in wave 3
+    # the health working group forms in wave 3 from five members of other positions (their
+    # moves are 2 -> 3, into a position born in wave 3)
     tracks, moves, members = _demo("coalition-survey", tmp_path)
-    found = _moved(moves)
-    for actor, wave in {"Southgate Allotment Society": "2", "Millpond Arts Collective": "3",
-                        "Hillcrest Parents Network": "4"}.items():
-        assert found.get(actor) == wave, (actor, found.get(actor))
     group = ["Pellbrook Family Clinic", "Canal Side Counselling", "Pellbrook Home Care Network",
              "Brickworks Health Visitors", "Pellbrook Carers Forum"]
+    planted = {"Southgate Allotment Society": "2", "Millpond Arts Collective": "3",
+               "Hillcrest Parents Network": "4", **{a: "3" for a in group}}
+    # exactly the planted moves, each at its planted wave, and no other
+    assert moves["actor"].is_unique
+    assert _moved(moves) == planted
     wave3 = members[(members["period"].astype(str) == "3") & members["actor"].isin(group)]
     assert wave3["track"].nunique() == 1  # one position for the whole group
     group_track = int(wave3["track"].iloc[0])
     assert str(tracks.set_index("track").loc[group_track, "first_period"]) == "3"  # born with the group
-    real = {"Southgate Allotment Society", "Millpond Arts Collective", "Hillcrest Parents Network", *group}
+    assert (moves.loc[moves["actor"].isin(group), "to_track"] == group_track).all()
     confident = moves[moves["confidence"] >= 0.8]
-    assert set(confident["actor"]) <= real
-    assert all(found.get(a) in (None, "3") for a in group)
+    assert set(confident["actor"]) <= set(planted)
 
 
 def test_island_states_story(tmp_path):

@@ -77,6 +77,7 @@ __all__ = [
     "Link",
     "Alignment",
     "align",
+    "fixed_position_tracks",
     "max_weight_matching",
     "memberships",
 ]
@@ -325,6 +326,68 @@ def align(
         assignment={names[t]: state.assignment[names[t]] for t in range(len(periods))},
         links=state.links,
     )
+
+
+def fixed_position_tracks(periods: Sequence[PeriodPositions], max_gap: int = 0) -> Alignment:
+    """Tracks of a model whose positions mean the same in every period (a dynamic blockmodel).
+
+    No matching is needed: position ``k`` continues as itself.  A track is
+    born in the first period its position holds an actor and lives while the
+    position is occupied.  As in the life cycle of Greene, Doyle & Cunningham
+    [2]_, a position left empty for more than ``max_gap`` consecutive periods
+    ends its track, unless an actor of its last occupied period is back in it
+    when it is occupied again (member continuity, the overlap of [2]_ above
+    zero): then the track continues.  Otherwise the position starts a new
+    track there, so a position that held one stray actor years before the
+    group that fills it later is not dated to that stray period.
+
+    Track ids: the first track of position ``k`` is ``k + 1``; tracks born
+    later take ids above every position's, in order of birth.  The isolates'
+    position maps to :data:`ISOLATES_TRACK`.  Links: ``continue`` between
+    consecutive periods of a track, ``birth`` for a track born after the
+    first period.
+    """
+    if int(max_gap) < 0:
+        raise UsageError("max_gap must be 0 or more")
+    periods = list(periods)
+    n_max = max((pp.n_positions for pp in periods), default=0)
+    next_id = n_max + 1
+    current: dict[int, int] = {}  # position -> its open track
+    last_seen: dict[int, tuple[int, set]] = {}  # position -> (period index, members)
+    assignment, spans, links, ended = {}, {}, [], {}
+    for t, pp in enumerate(periods):
+        sizes = np.bincount(pp.labels, minlength=pp.n_positions)
+        track = np.full(pp.n_positions, EMPTY_POSITION, dtype=np.int64)
+        for k in np.flatnonzero(sizes):
+            k = int(k)
+            if pp.isolates is not None and k == pp.isolates:
+                track[k] = ISOLATES_TRACK
+                continue
+            members = {pp.actors[i] for i in np.flatnonzero(pp.labels == k)}
+            if k in current:
+                s, before = last_seen[k]
+                if t - s - 1 > int(max_gap) and not (before & members):
+                    ended[current[k]] = periods[s + 1].period
+                    current[k] = next_id
+                    next_id += 1
+            else:
+                current[k] = k + 1
+            if current[k] not in spans:
+                spans[current[k]] = [pp.period, pp.period]
+                if t > 0:
+                    links.append(Link(None, pp.period, None, current[k], None, k, np.nan, np.nan, np.nan, "birth"))
+            elif last_seen[k][0] == t - 1:
+                links.append(Link(periods[t - 1].period, pp.period, current[k], current[k], k, k, 1.0, np.nan,
+                                  np.nan, "continue"))
+            spans[current[k]][1] = pp.period
+            last_seen[k] = (t, members)
+            track[k] = current[k]
+        assignment[pp.period] = track
+    tracks = {tid: TrackInfo(tid, first, last, ended=ended.get(tid)) for tid, (first, last) in spans.items()}
+    if any((a == ISOLATES_TRACK).any() for a in assignment.values()):
+        seen = [p for p, a in assignment.items() if (a == ISOLATES_TRACK).any()]
+        tracks[ISOLATES_TRACK] = TrackInfo(ISOLATES_TRACK, seen[0], seen[-1], isolates=True)
+    return Alignment(tuple(pp.period for pp in periods), dict(sorted(tracks.items())), assignment, links)
 
 
 def memberships(periods: Sequence[PeriodPositions], alignment: Alignment) -> pd.DataFrame:

@@ -58,7 +58,6 @@ from tracker.models import likelihood as lik
 __all__ = ["DynamicSBM", "select_dynamic"]
 
 _PROB_FLOOR = 1e-10
-_BIRTH_EVICT = 3.0  # most actor-periods a birth may move out of a position  # keeps the forward recursion away from exact zeros
 
 
 class DynamicSBM:
@@ -79,7 +78,8 @@ class DynamicSBM:
         Stop when the bound rises by less than ``tol * |bound|``.
     births : bool, default True
         Let positions be born mid-series (closed in the entry and transition
-        laws before their birth period; see :func:`_choose_births`).
+        laws before their birth period; the criterion is in
+        :mod:`tracker.models.births`).
     restarts : int, default 3
         Starts: the first from a blockmodel of all periods pooled (spectral
         start, see :class:`~tracker.blockmodel.sbm.SBMPositions`), the others
@@ -499,43 +499,13 @@ def _em_loop(data: _Data, state: _State, params: _Params, B: int, rng, max_iter:
 
 def _choose_births(data: _Data, state: _State, params: _Params, B: int, rng, max_iter: int, tol: float,
                    history: list):
-    """Give each position a birth period where the data prefer one (see the class Notes).
+    """Each position's birth period (0: open from the start); see :mod:`tracker.models.births`.
 
-    For each position ``k`` (in order) and each candidate birth ``b`` such
-    that at most ``_BIRTH_EVICT`` actor-periods of posterior mass sit in
-    ``k`` before ``b``, EM is rerun from the current fit with ``k`` closed
-    before ``b``; the best bound wins if it beats the open position by more
-    than ``log(T - 1)``: the posterior odds under a prior that gives
-    probability 1/2 to "open from the start" and spreads the other half
-    evenly over the ``T - 1`` later birth periods (a Bayes factor approximated
-    by the bound; Kass & Raftery 1995).  Returns ``(state, params, history,
-    births)``.
+    Returns ``(state, params, history, births)``.
     """
-    T = data.T
-    active = np.ones((T, B), dtype=bool) if params.active is None else params.active.copy()
-    cost = np.log(max(T - 1, 1))
-    births = np.zeros(B, dtype=np.int64)
-    current = history[-1]
-    for k in range(B):
-        occupancy = np.array([state.gamma[t, idx, k].sum() for t, idx in enumerate(data.index)])
-        before = np.concatenate([[0.0], np.cumsum(occupancy)])[:-1]
-        best = None
-        for b in range(1, T):
-            if before[b] > _BIRTH_EVICT or occupancy[b:].sum() < 0.5:
-                continue
-            trial = active.copy()
-            trial[:b, k] = False
-            if (trial.sum(axis=1) == 0).any():
-                continue
-            result = _em_loop(data, state, dataclasses.replace(params, active=trial), B, rng, max_iter, tol)
-            if best is None or result[2][-1] > best[0][2][-1]:
-                best = (result, b, trial)
-        if best is not None and best[0][2][-1] - current > cost:
-            (state, params, more, _), b, active = best
-            history = history + [more[-1]]  # the accepted birth raises the bound by more than its cost
-            current = history[-1]
-            births[k] = b
-    return state, params, history, births
+    from tracker.models.births import choose_births
+
+    return choose_births(data, state, params, B, rng, max_iter, tol, history)
 
 
 def _e_step(data, state, params, current, rng):

@@ -161,7 +161,7 @@ def _one_study(template, settings, align_params, moves, keep_probability, seed):
                            f.stats.density) for f in fits]
     dynamic = is_dynamic(settings)
     if dynamic:
-        alignment = identity_alignment(pps)
+        alignment = identity_alignment(pps, max_gap=align_params["max_gap"])
     else:
         alignment = align(pps, weight_overlap=align_params["weight_overlap"],
                           link_threshold=align_params["link_threshold"],

@@ -37,7 +37,7 @@ def align_fit(store, info: dict, params: dict, *, rebuild: bool = False):
     previous = None if rebuild or joint else stored_alignment(store, fit_id, [p.period for p in periods])
     done = 0 if previous is None else len(previous.periods)
     if joint:
-        alignment = identity_alignment(periods)
+        alignment = identity_alignment(periods, max_gap=params["max_gap"])
     else:
         alignment = align_positions(periods, previous=previous, weight_overlap=params["weight_overlap"],
                                     link_threshold=params["link_threshold"],
@@ -224,31 +224,17 @@ def track_names(tracks: pd.DataFrame) -> dict[int, str]:
     }
 
 
-def identity_alignment(periods):
-    """Tracks of a dynamic fit: position k is track k + 1 in every period; isolates track 0.
+def identity_alignment(periods, max_gap: int = 0):
+    """Tracks of a dynamic fit (:func:`tracker.longitudinal.align.fixed_position_tracks`).
 
-    A position empty in a period has no track there, so a track is born in the
-    first period its position holds an actor and ends after the last.
+    Position k is track k + 1 while it is occupied; isolates are track 0.  A
+    track is born in the first period its position holds an actor; a position
+    empty for more than ``max_gap`` periods and then filled by other actors
+    starts a new track.
     """
-    from tracker.longitudinal.align import Alignment, Link, TrackInfo
+    from tracker.longitudinal.align import fixed_position_tracks
 
-    assignment, seen = {}, {}
-    for pp in periods:
-        sizes = np.bincount(pp.labels, minlength=pp.n_positions)
-        track = np.where(sizes > 0, np.arange(pp.n_positions) + 1, -1)
-        if pp.isolates is not None:
-            track[pp.isolates] = 0 if sizes[pp.isolates] else -1
-        assignment[pp.period] = track.astype(np.int64)
-        for t in track[track >= 0]:
-            seen.setdefault(int(t), []).append(pp.period)
-    tracks = {t: TrackInfo(t, ps[0], ps[-1], isolates=(t == 0)) for t, ps in sorted(seen.items())}
-    links = []
-    for a, b in zip(periods, periods[1:]):
-        common = set(assignment[a.period][assignment[a.period] > 0]) & set(assignment[b.period][assignment[b.period] > 0])
-        for t in sorted(common):
-            links.append(Link(a.period, b.period, int(t), int(t), int(np.flatnonzero(assignment[a.period] == t)[0]),
-                              int(np.flatnonzero(assignment[b.period] == t)[0]), 1.0, float("nan"), float("nan"), "continue"))
-    return Alignment(tuple(p.period for p in periods), tracks, assignment, links)
+    return fixed_position_tracks(periods, max_gap=max_gap)
 
 
 def memberships_with_tracks(periods, alignment) -> pd.DataFrame:
