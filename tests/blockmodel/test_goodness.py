@@ -88,8 +88,10 @@ def test_density_correlation_equals_numpy_corrcoef(case):
     if d.std() < 1e-12:
         assert got == pytest.approx(0.0, abs=1e-9)  # documented convention
         return
-    # Reference: numpy.corrcoef of the explicit cell vectors (Pearson).
-    assert got == pytest.approx(np.corrcoef(x, d)[0, 1], abs=1e-9)
+    # Reference: numpy.corrcoef of the explicit cell vectors (Pearson).  The tolerance is
+    # that of a square root: the statistic is sqrt(between / total variance), so a rounding
+    # error of 1e-16 in a between-variance near 0 shows as about 1e-8 in the correlation.
+    assert got == pytest.approx(np.corrcoef(x, d)[0, 1], abs=1e-6)
 
 
 def test_density_correlation_of_perfect_structure_is_one():
