@@ -119,10 +119,12 @@ def aggregate_files(
                           f"columns={{{cols}}}, filename=true, strict_mode=true, null_padding=false, auto_detect=false)")
             else:
                 source = f"read_parquet({listed}, filename=true, union_by_name=true)"
-            select = ", ".join(f"coalesce(CAST({_quote(c)} AS VARCHAR), '') AS {_quote(c)}" for c in wanted.values())
+            numeric = _numeric_weight(con, source, mapping)
+            select = ", ".join(_quote(c) if numeric and c == mapping.weight else f"coalesce(CAST({_quote(c)} AS VARCHAR), '') AS {_quote(c)}"
+                               for c in wanted.values())
             try:
                 con.execute(f"CREATE TEMP VIEW raw AS SELECT {select}, filename FROM {source}")
-                yield from _aggregate(con, files, first, mapping, scheme)
+                yield from _aggregate(con, files, first, mapping, scheme, numeric)
             except duckdb.OutOfMemoryException:
                 raise InputError(f"needed more memory than --memory-limit {memory_limit} to sum",
                                  file=str(Path(names[0]).parent), fix="raise --memory-limit (e.g. 2GB), or import the files in smaller groups") from None
@@ -138,10 +140,20 @@ def _distinct(con, sql: str) -> pd.Series:
     return pd.Series(con.execute(sql).fetchnumpy()["x"], dtype=object).fillna("")
 
 
-def _weight_checks(w: str, number: str):
+def _numeric_weight(con, source: str, mapping: EventMapping) -> bool:
+    """Whether the weight column is stored as numbers (Parquet): then it is summed as such, not parsed from text."""
+    if mapping.weight is None or not source.startswith("read_parquet"):
+        return False
+    types = {row[0]: str(row[1]).upper() for row in con.execute(f"DESCRIBE SELECT * FROM {source}").fetchall()}
+    kind = types.get(mapping.weight, "")
+    return kind in {"TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT", "USMALLINT", "UINTEGER",
+                    "UBIGINT", "FLOAT", "DOUBLE"} or kind.startswith("DECIMAL")
+
+
+def _weight_checks(w: str, number: str, numeric: bool = False):
     """(SQL condition, problem, fix) for bad weights, in the order the checks of a single file run."""
     return (
-        (f"{w} = ''", "has no weight", "fill in a number (0 for an observed absence of a tie) or drop the row"),
+        (f"{w} IS NULL" if numeric else f"{w} = ''", "has no weight", "fill in a number (0 for an observed absence of a tie) or drop the row"),
         (f"{number} IS NULL OR isnan({number})", "is not a number", "use a plain number with a decimal point, such as 1 or 2.5"),
         (f"NOT isfinite({number})", "is not a finite number", "use a plain number such as 1 or 2.5"),
         (f"{number} < 0", "is negative", "weights count or rate ties and must be 0 or more"),
@@ -156,7 +168,7 @@ def _code_map(con, name: str, raw: pd.Series, normalised: np.ndarray) -> np.ndar
     return np.asarray(uniques, dtype=object)
 
 
-def _aggregate(con, files, first, mapping: EventMapping, scheme: PeriodScheme) -> Iterator[EventBlock]:
+def _aggregate(con, files, first, mapping: EventMapping, scheme: PeriodScheme, numeric: bool = False) -> Iterator[EventBlock]:
     """Two passes over the files: the distinct values of every column (and a count of bad weights), then the sums.
 
     The first pass gathers the distinct source, target, relation and date
@@ -169,13 +181,15 @@ def _aggregate(con, files, first, mapping: EventMapping, scheme: PeriodScheme) -
     q = _quote
     if mapping.date is not None:
         d = f"trim(raw.{q(mapping.date)})"
-        key = d if mapping.date_format else f"CASE WHEN regexp_matches({d}, '^\\d{{4}}-\\d\\d-\\d\\d[T ]') THEN left({d}, 10) ELSE {d} END"
+        # the length test first: the pattern is matched only on text longer than a date
+        key = d if mapping.date_format else (f"CASE WHEN length({d}) > 10 AND regexp_matches({d}, '^\\d{{4}}-\\d\\d-\\d\\d[T ]') "
+                                             f"THEN left({d}, 10) ELSE {d} END")
     else:
         key = f"trim(raw.{q(mapping.period_column)})"
     if mapping.weight is not None:
-        w = f"trim(raw.{q(mapping.weight)})"
-        number = f"TRY_CAST({w} AS DOUBLE)"
-        bad_weight = " OR ".join(f"({c})" for c, _, _ in _weight_checks(w, number))
+        w = f"raw.{q(mapping.weight)}" if numeric else f"trim(raw.{q(mapping.weight)})"
+        number = f"CAST({w} AS DOUBLE)" if numeric else f"TRY_CAST({w} AS DOUBLE)"
+        bad_weight = " OR ".join(f"({c})" for c, _, _ in _weight_checks(w, number, numeric))
         weight_expr = number
     else:
         w = number = None
@@ -190,11 +204,12 @@ def _aggregate(con, files, first, mapping: EventMapping, scheme: PeriodScheme) -
     part = {name: found[found["g"] == g] for name, g in (("s", 7), ("t", 11), ("r", 13), ("d", 14))}
     # -- weights: located and named only when a pass found a bad one
     if int(part["d"]["bad"].sum()):
-        for condition, problem, fix in _weight_checks(w, number):
+        for condition, problem, fix in _weight_checks(w, number, numeric):
             bad = con.execute(f"SELECT {w}, filename FROM raw WHERE {condition} LIMIT 1").fetchone()
             if bad:
-                raise _place(first, Path(bad[1]), mapping.weight, bad[0],
-                             InputError(problem, column=mapping.weight, value=bad[0], fix=fix))
+                value = "" if bad[0] is None else str(bad[0])
+                raise _place(first, Path(bad[1]), mapping.weight, value,
+                             InputError(problem, column=mapping.weight, value=value, fix=fix))
     # -- labels: checked once per distinct value, normalised in Python, coded for DuckDB
     labels = pd.Series(pd.unique(pd.concat([part["s"]["s"], part["t"]["t"]], ignore_index=True)), dtype=object).fillna("")
     codes, names = _checked(con, files, first, labels, "actor", [mapping.source, mapping.target], lambda t, c: _labels(t, "x", c, "actor"))
