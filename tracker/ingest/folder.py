@@ -111,6 +111,7 @@ def aggregate_files(
         con = duckdb.connect(config={"memory_limit": memory_limit, "temp_directory": spill,
                                      "preserve_insertion_order": False, **({"threads": threads} if threads else {})})
         try:
+            _small_build_sides(con)
             names = [str(p) for p in files]
             listed = "[" + ", ".join(_literal(n) for n in names) + "]"
             if first.kind == "csv":
@@ -136,8 +137,24 @@ def aggregate_files(
             con.close()
 
 
-def _distinct(con, sql: str) -> pd.Series:
-    return pd.Series(con.execute(sql).fetchnumpy()["x"], dtype=object).fillna("")
+def _small_build_sides(con) -> None:
+    """Keep the joins in the order written, each hash table built on its (small) right side.
+
+    DuckDB cannot count the rows of CSV files before reading them (it
+    estimates a few thousand), so its optimiser may build a join's hash
+    table on the events and the small value map probe it: memory then grows
+    with the events (out of memory at 60M events and 256 MB).  The maps of
+    distinct values are always the small side, so the order as written is
+    the bounded one.  Optimisers this DuckDB does not know are skipped.
+    """
+    import duckdb
+
+    for names in ("join_order,build_side_probe_side", "join_order"):
+        try:
+            con.execute(f"SET disabled_optimizers = '{names}'")
+            return
+        except duckdb.Error:
+            continue
 
 
 def _numeric_weight(con, source: str, mapping: EventMapping) -> bool:
