@@ -5,7 +5,10 @@ fit in memory.  DuckDB (an embedded analytical database) scans the files in
 parallel and sums them to one row per (source, target, relation, period):
 value = sum of weights, n_events = number of events.  Its hash aggregation
 spills to disk beyond ``memory_limit``, so memory follows the number of
-distinct pairs per period (the ties), not the number of events.
+distinct values and of distinct pairs per period (the ties), not the number
+of events.  Two passes read the files: one for the distinct values of every
+column, one for the sums, joined to integer codes of the checked values (see
+:func:`_aggregate`; measured in tests/benchmarks/bench_import_folder.py).
 
 The checks are those of a single file (:mod:`tracker.ingest.block`), run on
 the distinct values of each column (labels, dates or periods; weights in

@@ -67,8 +67,8 @@ class EventStore(StoreBase):
         ``blocks`` yields :class:`tracker.ingest.block.EventBlock` objects; an
         exception raised while iterating rolls everything back.  Each block's
         distinct actors, relations and periods are resolved to ids once, the
-        rows are written with the back end's bulk path (SQLite: one prepared
-        INSERT run over every row; PostgreSQL: COPY), and the ties of periods
+        rows are written with the back end's bulk path (SQLite: prepared
+        INSERTs of many rows each, see :func:`_sqlite_insert_many`; PostgreSQL: COPY), and the ties of periods
         that had no events before are summed in numpy in the same pass; ties
         of periods that had events are rebuilt from the raw events in SQL.
 
