@@ -5,7 +5,10 @@ fit in memory.  DuckDB (an embedded analytical database) scans the files in
 parallel and sums them to one row per (source, target, relation, period):
 value = sum of weights, n_events = number of events.  Its hash aggregation
 spills to disk beyond ``memory_limit``, so memory follows the number of
-distinct pairs per period (the ties), not the number of events.
+distinct values and of distinct pairs per period (the ties), not the number
+of events.  Two passes read the files: one for the distinct values of every
+column, one for the sums, joined to integer codes of the checked values (see
+:func:`_aggregate`; measured in tests/benchmarks/bench_import_folder.py).
 
 The checks are those of a single file (:mod:`tracker.ingest.block`), run on
 the distinct values of each column (labels, dates or periods; weights in
@@ -111,6 +114,7 @@ def aggregate_files(
         con = duckdb.connect(config={"memory_limit": memory_limit, "temp_directory": spill,
                                      "preserve_insertion_order": False, **({"threads": threads} if threads else {})})
         try:
+            _small_build_sides(con)
             names = [str(p) for p in files]
             listed = "[" + ", ".join(_literal(n) for n in names) + "]"
             if first.kind == "csv":
@@ -119,10 +123,12 @@ def aggregate_files(
                           f"columns={{{cols}}}, filename=true, strict_mode=true, null_padding=false, auto_detect=false)")
             else:
                 source = f"read_parquet({listed}, filename=true, union_by_name=true)"
-            select = ", ".join(f"coalesce(CAST({_quote(c)} AS VARCHAR), '') AS {_quote(c)}" for c in wanted.values())
+            numeric = _numeric_weight(con, source, mapping)
+            select = ", ".join(_quote(c) if numeric and c == mapping.weight else f"coalesce(CAST({_quote(c)} AS VARCHAR), '') AS {_quote(c)}"
+                               for c in wanted.values())
             try:
                 con.execute(f"CREATE TEMP VIEW raw AS SELECT {select}, filename FROM {source}")
-                yield from _aggregate(con, files, first, mapping, scheme)
+                yield from _aggregate(con, files, first, mapping, scheme, numeric)
             except duckdb.OutOfMemoryException:
                 raise InputError(f"needed more memory than --memory-limit {memory_limit} to sum",
                                  file=str(Path(names[0]).parent), fix="raise --memory-limit (e.g. 2GB), or import the files in smaller groups") from None
@@ -134,85 +140,145 @@ def aggregate_files(
             con.close()
 
 
-def _distinct(con, sql: str) -> pd.Series:
-    return pd.Series(con.execute(sql).fetchnumpy()["x"], dtype=object).fillna("")
+def _small_build_sides(con) -> None:
+    """Keep the joins in the order written, each hash table built on its (small) right side.
+
+    DuckDB cannot count the rows of CSV files before reading them (it
+    estimates a few thousand), so its optimiser may build a join's hash
+    table on the events and the small value map probe it: memory then grows
+    with the events (out of memory at 60M events and 256 MB).  The maps of
+    distinct values are always the small side, so the order as written is
+    the bounded one.  Optimisers this DuckDB does not know are skipped.
+    """
+    import duckdb
+
+    for names in ("join_order,build_side_probe_side", "join_order"):
+        try:
+            con.execute(f"SET disabled_optimizers = '{names}'")
+            return
+        except duckdb.Error:
+            continue
 
 
-def _aggregate(con, files, first, mapping: EventMapping, scheme: PeriodScheme) -> Iterator[EventBlock]:
+def _numeric_weight(con, source: str, mapping: EventMapping) -> bool:
+    """Whether the weight column is stored as numbers (Parquet): then it is summed as such, not parsed from text."""
+    if mapping.weight is None or not source.startswith("read_parquet"):
+        return False
+    types = {row[0]: str(row[1]).upper() for row in con.execute(f"DESCRIBE SELECT * FROM {source}").fetchall()}
+    kind = types.get(mapping.weight, "")
+    return kind in {"TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT", "USMALLINT", "UINTEGER",
+                    "UBIGINT", "FLOAT", "DOUBLE"} or kind.startswith("DECIMAL")
+
+
+def _weight_checks(w: str, number: str, numeric: bool = False):
+    """(SQL condition, problem, fix) for bad weights, in the order the checks of a single file run."""
+    return (
+        (f"{w} IS NULL" if numeric else f"{w} = ''", "has no weight", "fill in a number (0 for an observed absence of a tie) or drop the row"),
+        (f"{number} IS NULL OR isnan({number})", "is not a number", "use a plain number with a decimal point, such as 1 or 2.5"),
+        (f"NOT isfinite({number})", "is not a finite number", "use a plain number such as 1 or 2.5"),
+        (f"{number} < 0", "is negative", "weights count or rate ties and must be 0 or more"),
+        (f"{number} > {MAX_WEIGHT!r}", f"is larger than {MAX_WEIGHT:.0e}", "check the value, or rescale the column"),
+    )
+
+
+def _code_map(con, name: str, raw: pd.Series, normalised: np.ndarray) -> np.ndarray:
+    """Register ``name`` (raw text -> integer code of its normalised value) in DuckDB; returns the distinct normalised values."""
+    codes, uniques = pd.factorize(pd.Series(normalised, dtype=object))
+    con.register(name, pd.DataFrame({"raw": raw.to_numpy(dtype=object), "code": codes.astype(np.int32)}))
+    return np.asarray(uniques, dtype=object)
+
+
+def _aggregate(con, files, first, mapping: EventMapping, scheme: PeriodScheme, numeric: bool = False) -> Iterator[EventBlock]:
+    """Two passes over the files: the distinct values of every column (and a count of bad weights), then the sums.
+
+    The first pass gathers the distinct source, target, relation and date
+    (or period) texts with one GROUPING SETS scan; they are checked in
+    Python and mapped to small integer codes, so the second pass joins and
+    groups on integers.  Memory: the distinct values, DuckDB's memory limit
+    (its hash tables spill to its temporary folder beyond it) and one batch
+    of summed rows, whatever the number of events.
+    """
     q = _quote
-    # -- labels: checked once per distinct value, normalised in Python, joined back in DuckDB
-    labels = _distinct(con, f"SELECT DISTINCT {q(mapping.source)} AS x FROM raw UNION SELECT DISTINCT {q(mapping.target)} FROM raw")
-    codes, names = _checked(con, files, first, labels, "actor", [mapping.source, mapping.target], lambda t, c: _labels(t, "x", c, "actor"))
-    con.register("actor_map", pd.DataFrame({"raw": labels.to_numpy(dtype=object), "norm": names.to_numpy(dtype=object)[codes]}))
-    if mapping.relation is not None:
-        rels = _distinct(con, f"SELECT DISTINCT {q(mapping.relation)} AS x FROM raw")
-        codes, names = _checked(con, files, first, rels, "relation", [mapping.relation], lambda t, c: _labels(t, "x", c, "relation"))
-        con.register("relation_map", pd.DataFrame({"raw": rels.to_numpy(dtype=object), "norm": names.to_numpy(dtype=object)[codes]}))
-        rel_join, rel_expr = f"JOIN relation_map r ON raw.{q(mapping.relation)} = r.raw", "r.norm"
-    else:
-        rel_join, rel_expr = "", f"'{mapping.fixed_relation()}'"
-    # -- weights in SQL
-    if mapping.weight is not None:
-        w = f"trim(raw.{q(mapping.weight)})"
-        number = f"TRY_CAST({w} AS DOUBLE)"
-        for condition, problem, fix in (
-            (f"{w} = ''", "has no weight", "fill in a number (0 for an observed absence of a tie) or drop the row"),
-            (f"{number} IS NULL OR isnan({number})", "is not a number", "use a plain number with a decimal point, such as 1 or 2.5"),
-            (f"NOT isfinite({number})", "is not a finite number", "use a plain number such as 1 or 2.5"),
-            (f"{number} < 0", "is negative", "weights count or rate ties and must be 0 or more"),
-            (f"{number} > {MAX_WEIGHT!r}", f"is larger than {MAX_WEIGHT:.0e}", "check the value, or rescale the column"),
-        ):
-            bad = con.execute(f"SELECT {w}, filename FROM raw WHERE {condition} LIMIT 1").fetchone()
-            if bad:
-                raise _place(first, Path(bad[1]), mapping.weight, bad[0],
-                             InputError(problem, column=mapping.weight, value=bad[0], fix=fix))
-        weight_expr = number
-    else:
-        weight_expr = "1.0"
-    # -- periods: from distinct dates (the day part of ISO date-times) or period labels
     if mapping.date is not None:
         d = f"trim(raw.{q(mapping.date)})"
-        key = d if mapping.date_format else f"CASE WHEN regexp_matches({d}, '^\\d{{4}}-\\d\\d-\\d\\d[T ]') THEN left({d}, 10) ELSE {d} END"
-        dates = _distinct(con, f"SELECT DISTINCT {key} AS x FROM raw")
-
+        # the length test first: the pattern is matched only on text longer than a date
+        key = d if mapping.date_format else (f"CASE WHEN length({d}) > 10 AND regexp_matches({d}, '^\\d{{4}}-\\d\\d-\\d\\d[T ]') "
+                                             f"THEN left({d}, 10) ELSE {d} END")
+    else:
+        key = f"trim(raw.{q(mapping.period_column)})"
+    if mapping.weight is not None:
+        w = f"raw.{q(mapping.weight)}" if numeric else f"trim(raw.{q(mapping.weight)})"
+        number = f"CAST({w} AS DOUBLE)" if numeric else f"TRY_CAST({w} AS DOUBLE)"
+        bad_weight = " OR ".join(f"({c})" for c, _, _ in _weight_checks(w, number, numeric))
+        weight_expr = number
+    else:
+        w = number = None
+        bad_weight, weight_expr = "false", "1.0"
+    relation = f"raw.{q(mapping.relation)}" if mapping.relation is not None else "''"
+    # -- pass 1: distinct values of each column, bad weights counted
+    found = con.execute(
+        f"WITH v AS (SELECT raw.{q(mapping.source)} AS s, raw.{q(mapping.target)} AS t, {relation} AS r, {key} AS d, "
+        f"CASE WHEN coalesce({bad_weight}, true) THEN 1 ELSE 0 END AS b FROM raw) "
+        "SELECT grouping(s, t, r, d) AS g, s, t, r, d, sum(b) AS bad FROM v GROUP BY GROUPING SETS ((s), (t), (r), (d))"
+    ).fetch_df()
+    part = {name: found[found["g"] == g] for name, g in (("s", 7), ("t", 11), ("r", 13), ("d", 14))}
+    # -- weights: located and named only when a pass found a bad one
+    if int(part["d"]["bad"].sum()):
+        for condition, problem, fix in _weight_checks(w, number, numeric):
+            bad = con.execute(f"SELECT {w}, filename FROM raw WHERE {condition} LIMIT 1").fetchone()
+            if bad:
+                value = "" if bad[0] is None else str(bad[0])
+                raise _place(first, Path(bad[1]), mapping.weight, value,
+                             InputError(problem, column=mapping.weight, value=value, fix=fix))
+    # -- labels: checked once per distinct value, normalised in Python, coded for DuckDB
+    labels = pd.Series(pd.unique(pd.concat([part["s"]["s"], part["t"]["t"]], ignore_index=True)), dtype=object).fillna("")
+    codes, names = _checked(con, files, first, labels, "actor", [mapping.source, mapping.target], lambda t, c: _labels(t, "x", c, "actor"))
+    actors = _code_map(con, "actor_map", labels, names.to_numpy(dtype=object)[codes])
+    if mapping.relation is not None:
+        rels = part["r"]["r"].reset_index(drop=True).fillna("").astype(object)
+        codes, names = _checked(con, files, first, rels, "relation", [mapping.relation], lambda t, c: _labels(t, "x", c, "relation"))
+        relations = _code_map(con, "relation_map", rels, names.to_numpy(dtype=object)[codes])
+        rel_join, rel_expr = f"JOIN relation_map r ON raw.{q(mapping.relation)} = r.raw", "r.code"
+    else:
+        relations = np.array([mapping.fixed_relation()], dtype=object)
+        rel_join, rel_expr = "", "0"
+    # -- periods: from distinct dates (the day part of ISO date-times) or period labels
+    if mapping.date is not None:
         def check_dates(t, c):
             return _dated_periods(t, _with_date(mapping, "x"), scheme, c)
     else:
-        key = f"trim(raw.{q(mapping.period_column)})"
-        dates = _distinct(con, f"SELECT DISTINCT {key} AS x FROM raw")
-
         def check_dates(t, c):
             return _column_periods(t, "x", c)
+    dates = part["d"]["d"].reset_index(drop=True).fillna("").astype(object)
     column = mapping.date or mapping.period_column
     codes, periods, _ = _checked(con, files, first, dates, "date", [column], check_dates, raw_column=True)
-    period_of = periods["label"].to_numpy(dtype=object)[np.asarray(codes)] if len(periods) else np.empty(0, dtype=object)
-    con.register("period_map", pd.DataFrame({"raw": dates.to_numpy(dtype=object), "period": period_of}))
     table = periods.drop_duplicates("label").reset_index(drop=True)
-    # -- one pass over the events: sum per pair, relation and period
+    period_of = periods["label"].to_numpy(dtype=object)[np.asarray(codes)] if len(periods) else np.empty(0, dtype=object)
+    con.register("period_map", pd.DataFrame({"raw": dates.to_numpy(dtype=object),
+                                             "code": pd.Index(table["label"]).get_indexer(period_of).astype(np.int32)}))
+    # -- pass 2: sum per pair, relation and period, on integer codes
     result = con.sql(
-        f"SELECT a.norm AS s, b.norm AS t, {rel_expr} AS r, p.period AS period, sum({weight_expr}) AS weight, count(*) AS n "
+        f"SELECT a.code AS s, b.code AS t, {rel_expr} AS r, p.code AS p, sum({weight_expr}) AS weight, count(*) AS n "
         f"FROM raw JOIN actor_map a ON raw.{q(mapping.source)} = a.raw JOIN actor_map b ON raw.{q(mapping.target)} = b.raw "
         f"{rel_join} JOIN period_map p ON {key} = p.raw GROUP BY ALL"
     )
     reader = result.to_arrow_reader(FETCH_ROWS) if hasattr(result, "to_arrow_reader") else result.record_batch(FETCH_ROWS)
     for batch in reader:
-        frame = batch.to_pandas()
-        if frame.empty:
+        if not batch.num_rows:
             continue
-        self_tie = (frame["s"] == frame["t"]).to_numpy()
-        selfies = int(frame["n"].to_numpy()[self_tie].sum())
-        frame = frame[~self_tie]
-        both = pd.concat([frame["s"], frame["t"]], ignore_index=True)
-        codes_st, names = pd.factorize(both)
-        rel_codes, rel_names = pd.factorize(frame["r"])
-        per_codes = pd.Index(table["label"]).get_indexer(frame["period"])
-        n = len(frame)
+        columns = {name: batch.column(name).to_numpy(zero_copy_only=False) for name in ("s", "t", "r", "p", "weight", "n")}
+        self_tie = columns["s"] == columns["t"]
+        selfies = int(columns["n"][self_tie].sum())
+        columns = {name: values[~self_tie] for name, values in columns.items()}
+        n = len(columns["s"])
+        # the actors and relations of this batch only (one seen only in self-ties is not added)
+        both, used = pd.factorize(np.concatenate([columns["s"], columns["t"]]))
+        relation, used_relations = pd.factorize(columns["r"])
         yield EventBlock(
-            rows=np.zeros(n, dtype=np.int64), actors=np.asarray(names, dtype=object),
-            source=codes_st[:n], target=codes_st[n:], relations=np.asarray(rel_names, dtype=object), relation=rel_codes,
-            periods=table, period=per_codes, dates=np.array([None], dtype=object), date=np.zeros(n, dtype=np.int64),
-            weight=frame["weight"].to_numpy(dtype=np.float64), n_events=frame["n"].to_numpy(dtype=np.int64),
-            self_ties=selfies,
+            rows=np.zeros(n, dtype=np.int64), actors=actors[np.asarray(used, dtype=np.int64)],
+            source=both[:n], target=both[n:], relations=relations[np.asarray(used_relations, dtype=np.int64)], relation=relation,
+            periods=table, period=columns["p"].astype(np.int64), dates=np.array([None], dtype=object), date=np.zeros(n, dtype=np.int64),
+            weight=columns["weight"].astype(np.float64), n_events=columns["n"].astype(np.int64), self_ties=selfies,
         )
 
 

@@ -67,8 +67,8 @@ class EventStore(StoreBase):
         ``blocks`` yields :class:`tracker.ingest.block.EventBlock` objects; an
         exception raised while iterating rolls everything back.  Each block's
         distinct actors, relations and periods are resolved to ids once, the
-        rows are written with the back end's bulk path (SQLite: one prepared
-        INSERT run over every row; PostgreSQL: COPY), and the ties of periods
+        rows are written with the back end's bulk path (SQLite: prepared
+        INSERTs of many rows each, see :func:`_sqlite_insert_many`; PostgreSQL: COPY), and the ties of periods
         that had no events before are summed in numpy in the same pass; ties
         of periods that had events are rebuilt from the raw events in SQL.
 
@@ -106,7 +106,7 @@ class EventStore(StoreBase):
                     index.drop(conn)
             actors_before = len(set(aliases.values()))
             dedup = _Duplicates(self, conn, with_events)
-            ties: list[pd.DataFrame] = []
+            ties: list[dict[str, np.ndarray]] = []
             tally = dict(read=0, loaded=0, stored=0, self_ties=0, rejected=0, in_file=0, in_study=0)
             for block in blocks:
                 tally["self_ties"] += block.self_ties
@@ -133,17 +133,24 @@ class EventStore(StoreBase):
                 tally["in_study"] += int(in_study.sum())
                 keep = ~(in_file | in_study) if drop_duplicates else np.ones(len(rows), dtype=bool)
                 counts = block.n_events
+                cols = {name: rows[name].to_numpy() for name in rows.columns}
+                file_rows = block.rows
                 if not keep.all():
-                    rows = rows[keep]
+                    cols = {name: values[keep] for name, values in cols.items()}
                     counts = None if counts is None else counts[keep]
-                occurred = block.dates[rows["date"].to_numpy()]
-                self._insert_event_rows(conn, batch_id, block.rows[keep], rows, occurred, counts)
-                tally["stored"] += len(rows)
-                tally["loaded"] += len(rows) if counts is None else int(counts.sum())
-                old = rows["period_id"].isin(with_events).to_numpy()
-                touched_old |= set(np.unique(rows["period_id"].to_numpy()[old]).tolist())
-                if (~old).any():
-                    ties.append(_tie_sums(rows[~old], counts if counts is None else counts[~old], relations))
+                    file_rows = file_rows[keep]
+                occurred = block.dates[cols["date"]]
+                self._insert_event_rows(conn, batch_id, file_rows, cols, occurred, counts)
+                stored = len(file_rows)
+                tally["stored"] += stored
+                tally["loaded"] += stored if counts is None else int(counts.sum())
+                old = np.isin(cols["period_id"], list(with_events))
+                touched_old |= set(np.unique(cols["period_id"][old]).tolist())
+                if old.any():
+                    cols = {name: values[~old] for name, values in cols.items()}
+                    counts = None if counts is None else counts[~old]
+                if len(cols["period_id"]):
+                    ties.append(_tie_sums(cols, np.ones(len(cols["period_id"]), np.int64) if counts is None else counts, relations))
             if tally["read"] == 0:
                 raise StoreError(f"{file_name}: has a header but no data rows; nothing was imported")
             if tally["stored"] == 0 and tally["rejected"]:
@@ -181,49 +188,52 @@ class EventStore(StoreBase):
             aliases.update(ids)
         return np.fromiter((aliases[label] for label in labels.tolist()), dtype=np.int64, count=len(labels))
 
-    def _insert_event_rows(self, conn, batch_id: int, file_rows, rows: pd.DataFrame, occurred, counts) -> None:
-        """Write event rows with the back end's bulk path."""
-        columns = [
-            itertools.repeat(batch_id, len(rows)),
-            np.asarray(file_rows, dtype=np.int64).tolist(),
-            rows["source_id"].tolist(), rows["target_id"].tolist(), rows["relation_id"].tolist(),
-            occurred.tolist(), rows["period_id"].tolist(), rows["weight"].tolist(),
-        ]
+    def _insert_event_rows(self, conn, batch_id: int, file_rows: np.ndarray, cols: dict, occurred: np.ndarray, counts) -> None:
+        """Write event rows (arrays of ids, dates, weights) with the back end's bulk path."""
         names = list(_EVENT_COLUMNS)
+        columns = [batch_id, file_rows, cols["source_id"], cols["target_id"], cols["relation_id"], occurred,
+                   cols["period_id"], cols["weight"]]
         if counts is not None:
-            columns.append(np.asarray(counts, dtype=np.int64).tolist())
             names.append("n_events")
-        self._bulk_insert(conn, "events", names, columns)
+            columns.append(counts)
+        self._bulk_insert(conn, "events", names, columns, len(file_rows))
 
-    def _bulk_insert(self, conn, table: str, names: Sequence[str], columns: Sequence) -> None:
-        """Rows given column by column: SQLite executemany of one prepared INSERT, PostgreSQL COPY."""
-        rows = list(zip(*columns))
-        if not rows:
+    def _bulk_insert(self, conn, table: str, names: Sequence[str], columns: Sequence, n: int) -> None:
+        """``n`` rows given column by column (numpy arrays, or one value for every row).
+
+        SQLite: one prepared INSERT of many rows (:func:`_sqlite_insert_many`);
+        PostgreSQL: COPY.
+        """
+        if not n:
             return
         if conn.dialect.name == "sqlite":
-            # The driver's executemany over tuples is several times faster than
-            # a dict per row; the statement is fixed and parameterised.
-            marks = ", ".join("?" * len(names))
-            conn.exec_driver_sql(f"INSERT INTO {table} ({', '.join(names)}) VALUES ({marks})", rows)
-        elif conn.dialect.name == "postgresql":
-            _copy_rows(conn, table, names, rows)
+            _sqlite_insert_many(conn, table, names, columns, n)
+            return
+        lists = [itertools.repeat(c, n) if np.ndim(c) == 0 else np.asarray(c).tolist() for c in columns]
+        if conn.dialect.name == "postgresql":
+            _copy_rows(conn, table, names, zip(*lists))
         else:
             model = {"events": Event, "ties": Tie}[table]
-            conn.execute(insert(model), [dict(zip(names, values)) for values in rows])
+            conn.execute(insert(model), [dict(zip(names, values)) for values in zip(*lists)])
 
-    def _insert_ties(self, conn, parts: list[pd.DataFrame]) -> set[int]:
+    def _insert_ties(self, conn, parts: list[dict[str, np.ndarray]]) -> set[int]:
         """Store ties summed in numpy (periods without earlier events); returns their period ids."""
         if not parts:
             return set()
         key = ["period_id", "relation_id", "source_id", "target_id"]
-        ties = pd.concat(parts, ignore_index=True).groupby(key, sort=False, as_index=False).sum()
-        periods = set(np.unique(ties["period_id"].to_numpy()).tolist())
+        if len(parts) == 1:
+            ties = parts[0]
+        else:
+            joined = {name: np.concatenate([p[name] for p in parts]) for name in parts[0]}
+            ties = _sum_by_key([joined[k] for k in key], joined, ["value", "n_events"])
+        periods = set(np.unique(ties["period_id"]).tolist())
         ordered = sorted(periods)
         for start in range(0, len(ordered), _IN_CHUNK):  # ties left by a replaced batch
             conn.execute(delete(Tie).where(Tie.period_id.in_(ordered[start : start + _IN_CHUNK])))
-        # in primary-key order: the B-tree grows at its right edge instead of splitting pages all over
-        ties = ties[ties["value"] > 0].sort_values(key)
-        self._bulk_insert(conn, "ties", [*key, "value", "n_events"], [ties[c].tolist() for c in [*key, "value", "n_events"]])
+        # in primary-key order (as summed): the B-tree grows at its right edge instead of splitting pages all over
+        positive = ties["value"] > 0
+        names = [*key, "value", "n_events"]
+        self._bulk_insert(conn, "ties", names, [ties[c][positive] for c in names], int(positive.sum()))
         return periods
 
     def import_roster(
@@ -338,31 +348,6 @@ class EventStore(StoreBase):
                 part = labels[start : start + _IN_CHUNK]
                 periods.update(dict(conn.execute(select(Period.label, Period.id).where(Period.label.in_(part))).all()))
         return events["period"].map(periods).to_numpy(dtype=np.int64)
-
-    def _insert_events(self, conn, batch_id, events, source, target, relation, period) -> None:
-        occurred = events["occurred"].to_numpy(dtype=object)
-        columns = (
-            np.full(len(events), batch_id).tolist(),
-            events["row"].astype(np.int64).tolist(),
-            source.tolist(),
-            target.tolist(),
-            relation.tolist(),
-            [None if o is None else str(o) for o in occurred],
-            period.tolist(),
-            events["weight"].astype(float).tolist(),
-        )
-        if conn.dialect.name == "sqlite":
-            # The driver's executemany on tuples is several times faster than
-            # building a dict per row; the statement is fixed and parameterised.
-            conn.exec_driver_sql(
-                "INSERT INTO events (batch_id, row, source_id, target_id, relation_id, occurred, period_id, weight) "
-                "VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
-                list(zip(*columns)),
-            )
-        elif conn.dialect.name == "postgresql":
-            _copy_rows(conn, "events", _EVENT_COLUMNS, zip(*columns))
-        else:
-            conn.execute(insert(Event), [dict(zip(_EVENT_COLUMNS, values)) for values in zip(*columns)])
 
     def _rebuild_ties(self, conn, period_ids: Iterable[int]) -> None:
         """Recompute the ties of some periods from their raw events.
@@ -667,21 +652,100 @@ class EventStore(StoreBase):
 
 
 
-def _tie_sums(rows: pd.DataFrame, counts, relations: dict) -> pd.DataFrame:
-    """Ties of event rows: value = sum of weights, n_events = number of events.
+def _tie_sums(rows: dict[str, np.ndarray], counts: np.ndarray, relations: dict) -> dict[str, np.ndarray]:
+    """Ties of event rows: value = sum of weights, n_events = sum of counts, sorted by the ties' primary key.
 
     Undirected relations put the smaller actor id first (see :meth:`EventStore._rebuild_ties`).
     """
     directed_ids = [rid for rid, flag in relations.values() if flag]
-    src = rows["source_id"].to_numpy()
-    dst = rows["target_id"].to_numpy()
-    flip = ~rows["relation_id"].isin(directed_ids).to_numpy() & (src > dst)
-    frame = pd.DataFrame({
-        "period_id": rows["period_id"].to_numpy(), "relation_id": rows["relation_id"].to_numpy(),
-        "source_id": np.where(flip, dst, src), "target_id": np.where(flip, src, dst),
-        "value": rows["weight"].to_numpy(), "n_events": 1 if counts is None else np.asarray(counts, dtype=np.int64),
-    })
-    return frame.groupby(["period_id", "relation_id", "source_id", "target_id"], sort=False, as_index=False).sum()
+    src, dst = rows["source_id"], rows["target_id"]
+    flip = ~np.isin(rows["relation_id"], directed_ids) & (src > dst)
+    keys = [rows["period_id"], rows["relation_id"], np.where(flip, dst, src), np.where(flip, src, dst)]
+    return _sum_by_key(keys, {"value": rows["weight"], "n_events": counts}, ["value", "n_events"])
+
+
+_TIE_KEY = ("period_id", "relation_id", "source_id", "target_id")
+
+
+def _sum_by_key(keys: list[np.ndarray], values: dict, summed: list[str]) -> dict[str, np.ndarray]:
+    """Rows with equal ``keys`` (non-negative integer ids) summed: one row per key, in ascending key order.
+
+    Rows are ordered by a stable sort, so each sum adds its rows in their
+    given order.  The keys are packed into one int64 when their ids fit in
+    62 bits (one sort of one array), else sorted with ``np.lexsort``.
+    """
+    n = len(keys[0])
+    if n == 0:
+        return {**{k: np.asarray(a, dtype=np.int64) for k, a in zip(_TIE_KEY, keys)},
+                **{name: np.asarray(values[name]) for name in summed}}
+    widths = [max(int(k.max()), 1).bit_length() for k in keys]
+    if min(int(k.min()) for k in keys) >= 0 and sum(widths) <= 62:
+        packed = np.zeros(n, dtype=np.int64)
+        for k, w in zip(keys, widths):
+            packed = (packed << w) | k.astype(np.int64, copy=False)
+        order = np.argsort(packed, kind="stable")
+        ordered = packed[order]
+        first = np.empty(n, dtype=bool)
+        first[0] = True
+        np.not_equal(ordered[1:], ordered[:-1], out=first[1:])
+        starts = np.flatnonzero(first)
+        unique = ordered[starts]
+        out = {}
+        for name, w in zip(reversed(_TIE_KEY[: len(keys)]), reversed(widths)):
+            out[name] = unique & ((1 << w) - 1)
+            unique = unique >> w
+        out = {name: out[name] for name in _TIE_KEY[: len(keys)]}
+    else:
+        order = np.lexsort(keys[::-1])
+        first = np.zeros(n, dtype=bool)
+        first[0] = True
+        for k in keys:
+            ordered_k = k[order]
+            first[1:] |= ordered_k[1:] != ordered_k[:-1]
+        starts = np.flatnonzero(first)
+        out = {name: k[order[starts]].astype(np.int64, copy=False) for name, k in zip(_TIE_KEY, keys)}
+    for name in summed:
+        out[name] = np.add.reduceat(np.asarray(values[name])[order], starts)
+    return out
+
+
+def _sqlite_insert_many(conn, table: str, names: Sequence[str], columns: Sequence, n: int) -> None:
+    """Insert ``n`` rows into SQLite with INSERT statements of many rows each.
+
+    One statement of ``k`` rows (``k * len(names)`` parameters, at most 999,
+    the smallest limit of any SQLite build) is prepared once and run over
+    every group of ``k`` rows by the driver's ``executemany``: the per-row
+    work of the driver (step, reset, a Python tuple) is paid once per ``k``
+    rows.  The values reach the driver as plain Python numbers and strings,
+    converted in C by numpy (object arrays), a chunk at a time to bound memory.
+    ``table`` and ``names`` are fixed names from this module, never user input.
+    """
+    width = len(names)
+    per = max(1, _SQLITE_PARAMS // width)
+    head = f"INSERT INTO {table} ({', '.join(names)}) VALUES "
+    one = "(" + ", ".join("?" * width) + ")"
+    many = head + ", ".join([one] * per)
+    cursor = conn.connection.driver_connection.cursor()
+    try:
+        step = per * _SQLITE_CHUNK
+        for start in range(0, n, step):
+            stop = min(n, start + step)
+            block = np.empty((stop - start, width), dtype=object)
+            for j, column in enumerate(columns):
+                block[:, j] = column if np.ndim(column) == 0 else column[start:stop]
+            whole = (stop - start) // per * per
+            if whole:
+                cursor.executemany(many, block[:whole].reshape(-1, per * width).tolist())
+            if whole < stop - start:
+                cursor.execute(head + ", ".join([one] * (stop - start - whole)), block[whole:].ravel().tolist())
+    finally:
+        cursor.close()
+
+
+#: Parameters in one SQLite statement (SQLITE_MAX_VARIABLE_NUMBER was 999 before SQLite 3.32).
+_SQLITE_PARAMS = 999
+#: Statements of rows converted to Python values at a time.
+_SQLITE_CHUNK = 512
 
 
 class _Duplicates:
