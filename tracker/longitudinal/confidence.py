@@ -60,15 +60,20 @@ FEATURES = ("ties_from", "ties_to", "stay_after", "stay_before", "affinity_to", 
 
 
 def simulate_period(labels: np.ndarray, density: np.ndarray, directed: Sequence[bool],
-                    rng: np.random.Generator) -> list:
+                    rng: np.random.Generator, counts: bool = False) -> list:
     """One period drawn from a blockmodel: a Bernoulli tie per pair with its block's density.
+
+    With ``counts=True`` each pair instead gets a Poisson number of events
+    with its block's rate (the Poisson blockmodel of Karrer & Newman 2011
+    without degree correction).
 
     Parameters
     ----------
     labels : numpy.ndarray of int, shape (n,)
         Position of each actor, ``0 .. B-1``.
     density : numpy.ndarray, shape (R, B, B)
-        Tie probability per relation and block (values above 1 are taken as 1).
+        Tie probability per relation and block (values above 1 are taken as 1),
+        or the expected events per pair with ``counts=True``.
     directed : sequence of bool
         One flag per relation.
     rng : numpy.random.Generator
@@ -79,7 +84,10 @@ def simulate_period(labels: np.ndarray, density: np.ndarray, directed: Sequence[
         One 0/1 matrix per relation (symmetric when undirected, zero diagonal).
         Each block's number of ties is Binomial(possible pairs, density), placed
         on distinct pairs drawn uniformly: the same law as one coin per pair,
-        with memory proportional to the ties.
+        with memory proportional to the ties.  With ``counts=True`` a block's
+        number of events is Poisson(possible pairs x rate), each placed on a
+        pair drawn uniformly with replacement: given the total the counts are
+        multinomial, so each pair's count is an independent Poisson(rate).
 
     Examples
     --------
@@ -101,7 +109,7 @@ def simulate_period(labels: np.ndarray, density: np.ndarray, directed: Sequence[
         rows, cols = [], []
         for k in range(n_pos):
             for l in range(n_pos) if is_directed else range(k, n_pos):
-                p = min(max(float(density[r, k, l]), 0.0), 1.0)
+                p = max(float(density[r, k, l]), 0.0) if counts else min(max(float(density[r, k, l]), 0.0), 1.0)
                 nk, nl = members[k].size, members[l].size
                 if p == 0 or nk == 0 or nl == 0:
                     continue
@@ -113,8 +121,10 @@ def simulate_period(labels: np.ndarray, density: np.ndarray, directed: Sequence[
                     possible = nk * (nk - 1) // 2
                 if possible == 0:
                     continue
-                m = int(rng.binomial(possible, p))
-                idx = rng.choice(possible, size=m, replace=False).astype(np.int64)
+                if counts:
+                    idx = rng.integers(possible, size=int(rng.poisson(possible * p)), dtype=np.int64)
+                else:
+                    idx = rng.choice(possible, size=int(rng.binomial(possible, p)), replace=False).astype(np.int64)
                 i, j = _decode(idx, nk, nl, k == l, is_directed)
                 rows.append(members[k][i])
                 cols.append(members[l][j])
@@ -122,7 +132,7 @@ def simulate_period(labels: np.ndarray, density: np.ndarray, directed: Sequence[
         c_all = np.concatenate(cols) if cols else np.zeros(0, dtype=np.int64)
         if not is_directed:
             r_all, c_all = np.concatenate([r_all, c_all]), np.concatenate([c_all, r_all])
-        out.append(sp.csr_array((np.ones(r_all.size), (r_all, c_all)), shape=(n, n)))
+        out.append(sp.csr_array((np.ones(r_all.size), (r_all, c_all)), shape=(n, n)))  # duplicates summed
     return out
 
 

@@ -15,6 +15,7 @@ import dataclasses
 
 import numpy as np
 import pandas as pd
+import scipy.sparse as sp
 
 from tracker.execution import map_tasks, task_seeds
 from tracker.longitudinal.confidence import MoveCalibrator
@@ -137,11 +138,7 @@ def _one_study(template, settings, align_params, moves, keep_probability, seed):
     Each fitted move is planted with probability ``keep_probability`` (drawn
     here from ``seed``), the others undone (:func:`planted`).
     """
-    from tracker.longitudinal.align import PeriodPositions, align, memberships
-    from tracker.longitudinal.confidence import move_features, simulate_period, true_moves_mask
-    from tracker.longitudinal.movement import moves as find_moves
-    from tracker.pipeline.fitting import fit_snapshots
-    from tracker.pipeline.tracking import identity_alignment
+    from tracker.longitudinal.confidence import simulate_period
     from tracker.snapshot import Snapshot
 
     rng = np.random.default_rng(seed)
@@ -156,6 +153,31 @@ def _one_study(template, settings, align_params, moves, keep_probability, seed):
             density[:, :, p.isolates] = 0.0
         mats = simulate_period(labels[t], density, [r.directed for r in p.relations], rng)
         snaps.append(Snapshot(p.period, p.actors, p.relations, tuple(mats)))
+    return _refit_and_score(snaps, settings, align_params, truth)
+
+
+def _one_chain_study(template, settings, align_params, chain, seed):
+    """Draw one study from a dynamic fit's own model (:func:`chain_draw`), refit it, return (features, real)."""
+    from tracker.longitudinal.confidence import simulate_period
+    from tracker.snapshot import Snapshot
+
+    rng = np.random.default_rng(seed)
+    labels, truth = chain_draw(template, chain, rng)
+    snaps = [Snapshot(p.period, p.actors, p.relations,
+                      tuple(simulate_period(labels[t], chain["rates"], [r.directed for r in p.relations], rng,
+                                            counts=chain["counts"])))
+             for t, p in enumerate(template)]
+    return _refit_and_score(snaps, settings, align_params, truth)
+
+
+def _refit_and_score(snaps, settings, align_params, truth):
+    """Refit simulated periods with the fit's own procedure; (features, real) of the moves it reports."""
+    from tracker.longitudinal.align import PeriodPositions, align, memberships
+    from tracker.longitudinal.confidence import move_features, true_moves_mask
+    from tracker.longitudinal.movement import moves as find_moves
+    from tracker.pipeline.fitting import fit_snapshots
+    from tracker.pipeline.tracking import identity_alignment
+
     fits = fit_snapshots(snaps, settings)
     pps = [PeriodPositions(f.period, f.actors, f.partition.labels, f.partition.n_positions, f.partition.isolates,
                            f.stats.density) for f in fits]
@@ -175,6 +197,80 @@ def _one_study(template, settings, align_params, moves, keep_probability, seed):
         feats = move_features(found, members, order, {s.period: s.matrices for s in snaps},
                               {s.period: s.actors for s in snaps})
     return feats, true_moves_mask(found, truth)
+
+
+def fitted_chain(template: list, diagnostics: dict) -> dict:
+    r"""The dynamic model a fit stands for: what :func:`chain_draw` draws studies from.
+
+    ``initial`` (:math:`\pi`) and ``transition`` (:math:`P`) are the fit's
+    own (stored in each period's diagnostics).  ``rates`` are its block
+    parameters :math:`\theta` when stored (fits since calibration by model
+    draws), otherwise the hard-label estimate pooled over periods (events per
+    pair of the fitted positions; the M-step of Matias & Miele 2017 with the
+    most probable positions).  A degree-corrected fit is drawn without its
+    degree correction, from the hard-label rates.  ``active[t, k]``: position
+    ``k`` holds an actor in period ``t`` in the fit (a position not yet born
+    or already ended takes nobody, as in the fitted model's laws).
+    """
+    n_pos = max(p.n_positions for p in template)
+    R = len(template[0].relations)
+    active = np.zeros((len(template), n_pos), dtype=bool)
+    for t, p in enumerate(template):
+        active[t, np.unique(p.labels)] = True
+    counts = diagnostics.get("model", "poisson") != "bernoulli"
+    rates = diagnostics.get("rates")
+    if rates is None or diagnostics.get("degree_corrected"):
+        totals, pairs = np.zeros((R, n_pos, n_pos)), np.zeros((R, n_pos, n_pos))
+        for p in template:
+            z = sp.csr_array((np.ones(len(p.actors)), (np.arange(len(p.actors)), p.labels)),
+                             shape=(len(p.actors), n_pos))
+            size = np.bincount(p.labels, minlength=n_pos).astype(np.float64)
+            for r, mat in enumerate(p.matrices[:R]):
+                m = sp.csr_array(mat, dtype=np.float64)
+                if not counts:
+                    m = sp.csr_array((m > 0).astype(np.float64))
+                totals[r] += np.asarray((z.T @ (m @ z)).toarray())
+                pairs[r] += np.outer(size, size) - np.diag(size)
+        rates = np.divide(totals, pairs, out=np.zeros_like(totals), where=pairs > 0)
+    return {"initial": np.asarray(diagnostics["initial"], dtype=np.float64),
+            "transition": np.asarray(diagnostics["transition"], dtype=np.float64),
+            "rates": np.asarray(rates, dtype=np.float64).reshape(R, n_pos, n_pos), "active": active,
+            "counts": bool(counts)}
+
+
+def chain_draw(template: list, chain: dict, rng: np.random.Generator) -> tuple[list, pd.DataFrame]:
+    r"""Positions of every present actor drawn from the fitted Markov chain; (labels per period, truth).
+
+    An actor's first presence draws from :math:`\pi`, each later presence
+    ``t`` (previous presence ``s``) from row :math:`z_s` of :math:`P^{t-s}`
+    (the chain runs on through absences), each restricted to the positions
+    active in that period and renormalised.  The truth table is ``period,
+    actor, track`` with track = position + 1 (positions mean the same in every
+    period in a dynamic fit).
+    """
+    pi, P, active = chain["initial"], chain["transition"], chain["active"]
+    n_pos = P.shape[0]
+    last = {}
+    labels, rows = [], []
+    steps = {0: np.eye(n_pos)}
+    for t, p in enumerate(template):
+        prev_t = np.array([last.get(a, (-1, -1))[0] for a in p.actors])
+        prev_z = np.array([last.get(a, (-1, -1))[1] for a in p.actors])
+        law = np.tile(pi, (len(p.actors), 1))
+        for gap in np.unique(t - prev_t[prev_t >= 0]):
+            if int(gap) not in steps:
+                steps[int(gap)] = np.linalg.matrix_power(P, int(gap))
+            who = (prev_t >= 0) & (t - prev_t == gap)
+            law[who] = steps[int(gap)][prev_z[who]]
+        law = law * active[t]
+        total = law.sum(axis=1, keepdims=True)
+        law = np.where(total > 0, law / np.where(total > 0, total, 1.0), active[t] / max(active[t].sum(), 1))
+        z = (rng.random((len(p.actors), 1)) > np.cumsum(law, axis=1)).sum(axis=1).clip(0, n_pos - 1)
+        labels.append(z.astype(np.int64))
+        for a, k in zip(p.actors, z):
+            last[a] = (t, int(k))
+        rows.append(pd.DataFrame({"period": p.period, "actor": list(p.actors), "track": z + 1}))
+    return labels, pd.concat(rows, ignore_index=True)
 
 
 def posterior_feature(diagnostics, moves: pd.DataFrame) -> np.ndarray:
@@ -248,7 +344,7 @@ def calibrated_confidence(store, info: dict, periods: list, alignment, moves: pd
         feats = _observed_features(sim, periods, alignment, moves)
     first, second = task_seeds(seed, 2)
     if dynamic:
-        runs = simulated_moves(sim, moves, np.ones(len(moves)), align_params, 2 * studies, first)
+        runs = chain_studies(sim, _chain_of(stored, sim), align_params, studies, first)
         model = MoveCalibrator(monotone=True).fit(np.vstack([f for f, _ in runs]), np.concatenate([r for _, r in runs]))
         return model.predict(feats)
     runs = simulated_moves(sim, moves, np.ones(len(moves)), align_params, studies, first)
@@ -260,6 +356,59 @@ def calibrated_confidence(store, info: dict, periods: list, alignment, moves: pd
     runs = simulated_moves(sim, moves, keep, align_params, studies, second)
     model = MoveCalibrator(monotone=dynamic).fit(np.vstack([f for f, _ in runs]), np.concatenate([r for _, r in runs]))
     return model.predict(feats)
+
+
+#: Simulated candidate changes wanted for the isotonic map of a dynamic fit (:func:`studies_needed`).
+MIN_CANDIDATES = 500
+#: Most studies simulated for one map, whatever the study.
+MAX_STUDIES = 250
+
+
+def studies_needed(candidates: int, studies: int, floor: int) -> int:
+    r"""How many simulated studies give :data:`MIN_CANDIDATES` candidate changes: the rule.
+
+    ``candidates`` were found in a first batch of ``studies`` studies.  The
+    number of studies is :math:`\lceil C / \bar c\rceil` with :math:`\bar c`
+    the candidates per study seen so far and :math:`C = 500`, clipped to
+    ``[floor, MAX_STUDIES]`` (``floor``: the ``draws`` option).  Why 500: the
+    reliability check bins confidence in fifths, and the isotonic map's value
+    on a stretch of raw probabilities is the share of real changes among the
+    simulated candidates there; with 500 candidates a fifth of them (100)
+    gives that share with binomial standard error at most
+    :math:`0.5/\sqrt{100} = 0.05`, the ECE target.  A large study, with many
+    candidates per simulated study, needs few simulations; a small or quiet
+    one needs many.  With no candidate at all in the first batch, the cap.
+    """
+    if studies < 1 or floor < 1:
+        raise ValueError("studies and floor must be at least 1")
+    if candidates <= 0:
+        return MAX_STUDIES
+    return int(np.clip(int(np.ceil(MIN_CANDIDATES * studies / candidates)), floor, MAX_STUDIES))
+
+
+def chain_studies(sim: dict, chain: dict, align_params: dict | None, floor: int, seed: int) -> list:
+    """(features, real) of studies drawn from a dynamic fit's model and refitted; as many as :func:`studies_needed`.
+
+    A first batch of ``floor`` studies, then the rest; study ``i`` always
+    draws from the ``i``-th seed spawned from ``seed`` (:func:`task_seeds`),
+    so the answer is the same for any number of workers.
+    """
+    floor = max(int(floor), 1)
+    params = {**DEFAULT_ALIGN, **{k: v for k, v in (align_params or {}).items() if k in DEFAULT_ALIGN}}
+    seeds = task_seeds(seed, MAX_STUDIES)
+    task = lambda s: (sim["template"], sim["settings"], params, chain, s)  # noqa: E731
+    runs = map_tasks(_one_chain_study, [task(s) for s in seeds[:floor]], label="simulated studies")
+    more = studies_needed(sum(len(r) for _, r in runs), len(runs), floor)
+    if more > len(runs):
+        runs += map_tasks(_one_chain_study, [task(s) for s in seeds[len(runs):more]], label="simulated studies")
+    return runs
+
+
+def _chain_of(stored: pd.DataFrame, sim: dict) -> dict:
+    import json
+
+    last = stored["diagnostics"].iloc[-1]
+    return fitted_chain(sim["template"], last if isinstance(last, dict) else json.loads(last or "{}"))
 
 
 def real_share(runs: list, planted_moves: int) -> float:
