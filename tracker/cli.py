@@ -680,8 +680,10 @@ def calibration(ctx, fit_id, studies, seed):
     table = pd.DataFrame(result["bins"])
     _emit(table, "table", None, title="Move confidence against the share of moves that are real")
     ece = "n/a" if result["ece"] is None else f"{result['ece']:.3f}"
+    floor = "" if result.get("ece_floor_95") is None else \
+        f"; up to {result['ece_floor_95']:.3f} would be chance on {result['moves']} moves"
     click.echo(f"fit {result['fit']}: {result['studies']} simulated studies, {result['moves']} moves; "
-               f"expected calibration error {ece} (0 = confidence matches how often moves are real)")
+               f"expected calibration error {ece} (0 = confidence matches how often moves are real{floor})")
 
 
 @main.command()

@@ -39,7 +39,7 @@ def test_calibration_command_stores_reliability_bins_and_ece(tmp_path):
     assert "chart-calibration" in report.read_text(encoding="utf-8")
     with Study(db) as study:
         stored = study.latest_calibration()
-    assert stored["studies"] == 4
+    assert stored["studies"] >= 4  # a dynamic fit may simulate more (studies_needed)
     bins = stored["bins"]
     assert len(bins) == 5 and sum(b["moves"] for b in bins) == stored["moves"]
     if stored["moves"]:
