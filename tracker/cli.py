@@ -631,7 +631,7 @@ def _structures_frame(table: pd.DataFrame) -> pd.DataFrame:
 @click.option("--draws", default=20, show_default=True, type=int,
               help="Descriptive methods: studies simulated from the fit and refitted the same way, to learn how "
                    "likely each move is to be real (parametric bootstrap; 0 = no confidence). The dynamic model: "
-                   "at least this many studies drawn from it, more until 500 simulated candidate changes "
+                   "at least this many studies drawn from it (at most 10x), more until 500 simulated candidate changes "
                    "recalibrate its posterior probability (0 = raw posterior).")
 @click.option("--seed", type=int,
               help="Starting number of the simulated studies (seed; default: the fit's seed); the same seed gives "

@@ -22,13 +22,15 @@ from tracker.snapshot import Relation, Snapshot
 
 def test_studies_needed_follows_the_stated_rule():
     # Source: the rule in studies_needed's docstring, worked by hand: ceil(500 x studies / candidates),
-    # clipped to [floor, MAX_STUDIES].
-    assert MIN_CANDIDATES == 500
+    # clipped to [floor, min(10 x floor, MAX_STUDIES)].
+    assert MIN_CANDIDATES == 500 and MAX_STUDIES == 250
     assert studies_needed(50, 20, 20) == 200      # 2.5 per study -> 200 studies
     assert studies_needed(1000, 20, 20) == 20     # a large study: the floor
     assert studies_needed(499, 1, 1) == 2
-    assert studies_needed(3, 20, 20) == MAX_STUDIES
-    assert studies_needed(0, 20, 5) == MAX_STUDIES
+    assert studies_needed(3, 20, 20) == 200       # 10 x the floor
+    assert studies_needed(3, 30, 30) == MAX_STUDIES
+    assert studies_needed(0, 20, 5) == 50
+    assert studies_needed(0, 300, 300) == 300     # the floor wins over the cap
     try:
         studies_needed(5, 0, 1)
     except ValueError:

@@ -390,7 +390,7 @@ def calibrated_confidence(store, info: dict, periods: list, alignment, moves: pd
 
 #: Simulated candidate changes wanted for the isotonic map of a dynamic fit (:func:`studies_needed`).
 MIN_CANDIDATES = 500
-#: Most studies simulated for one map, whatever the study.
+#: Most studies simulated for one map, whatever the study (and never more than 10 x the floor).
 MAX_STUDIES = 250
 
 
@@ -400,7 +400,8 @@ def studies_needed(candidates: int, studies: int, floor: int) -> int:
     ``candidates`` were found in a first batch of ``studies`` studies.  The
     number of studies is :math:`\lceil C / \bar c\rceil` with :math:`\bar c`
     the candidates per study seen so far and :math:`C = 500`, clipped to
-    ``[floor, MAX_STUDIES]`` (``floor``: the ``draws`` option).  Why 500: the
+    ``[floor, min(10 floor, MAX_STUDIES)]`` (``floor``: the ``draws``
+    option, so ``draws`` also bounds the time spent: at most ten times).  Why 500: the
     reliability check bins confidence in fifths, and the isotonic map's value
     on a stretch of raw probabilities is the share of real changes among the
     simulated candidates there; with 500 candidates a fifth of them (100)
@@ -411,9 +412,10 @@ def studies_needed(candidates: int, studies: int, floor: int) -> int:
     """
     if studies < 1 or floor < 1:
         raise ValueError("studies and floor must be at least 1")
+    cap = max(min(10 * int(floor), MAX_STUDIES), int(floor))
     if candidates <= 0:
-        return MAX_STUDIES
-    return int(np.clip(int(np.ceil(MIN_CANDIDATES * studies / candidates)), floor, MAX_STUDIES))
+        return cap
+    return int(np.clip(int(np.ceil(MIN_CANDIDATES * studies / candidates)), floor, cap))
 
 
 def chain_studies(sim: dict, chain: dict, align_params: dict | None, floor: int, seed: int) -> list:
