@@ -271,12 +271,14 @@ def chain_draw(template: list, chain: dict, rng: np.random.Generator) -> tuple[l
     """
     pi, P, active = chain["initial"], chain["transition"], chain["active"]
     n_pos = P.shape[0]
-    last = {}
+    everyone = pd.Index(pd.unique(np.concatenate([np.asarray(p.actors, dtype=object) for p in template])))
+    last_t = np.full(len(everyone), -1, dtype=np.int64)  # each actor's previous presence and position
+    last_z = np.full(len(everyone), -1, dtype=np.int64)
     labels, rows = [], []
     steps = {0: np.eye(n_pos)}
     for t, p in enumerate(template):
-        prev_t = np.array([last.get(a, (-1, -1))[0] for a in p.actors])
-        prev_z = np.array([last.get(a, (-1, -1))[1] for a in p.actors])
+        idx = everyone.get_indexer(list(p.actors))
+        prev_t, prev_z = last_t[idx], last_z[idx]
         law = np.tile(pi, (len(p.actors), 1))
         for gap in np.unique(t - prev_t[prev_t >= 0]):
             if int(gap) not in steps:
@@ -288,8 +290,7 @@ def chain_draw(template: list, chain: dict, rng: np.random.Generator) -> tuple[l
         law = np.where(total > 0, law / np.where(total > 0, total, 1.0), active[t] / max(active[t].sum(), 1))
         z = (rng.random((len(p.actors), 1)) > np.cumsum(law, axis=1)).sum(axis=1).clip(0, n_pos - 1)
         labels.append(z.astype(np.int64))
-        for a, k in zip(p.actors, z):
-            last[a] = (t, int(k))
+        last_t[idx], last_z[idx] = t, z
         rows.append(pd.DataFrame({"period": p.period, "actor": list(p.actors), "track": z + 1}))
     return labels, pd.concat(rows, ignore_index=True)
 
