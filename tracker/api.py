@@ -642,8 +642,11 @@ class Study:
         learned on ``draws`` studies simulated from the fit and refitted with
         its own procedure (:func:`tracker.pipeline.calibration.calibrated_confidence`);
         ``draws=0`` skips it.  For a dynamic fit the confidence is the model's
-        posterior change probability, recalibrated on ``2 * draws`` simulated
-        studies by an isotonic map (raw, uncalibrated, with ``draws=0``), and
+        posterior change probability, recalibrated by an isotonic map learned
+        on at least ``draws`` studies drawn from the fitted model (as many as
+        500 simulated candidate changes need;
+        :func:`tracker.pipeline.calibration.studies_needed`; raw, uncalibrated,
+        with ``draws=0``), and
         only changes with probability >= 0.5 are reported; the others are
         listed by :meth:`uncertain_changes`.  Moves into or out of the no-tie track (0) are
         left out unless ``include_isolates``: in sparse data an actor with no

@@ -630,8 +630,9 @@ def _structures_frame(table: pd.DataFrame) -> pd.DataFrame:
               help="How many periods a track may be missing and still continue afterwards.")
 @click.option("--draws", default=20, show_default=True, type=int,
               help="Descriptive methods: studies simulated from the fit and refitted the same way, to learn how "
-                   "likely each move is to be real (parametric bootstrap; 0 = no confidence). The dynamic model "
-                   "gives its posterior probability instead.")
+                   "likely each move is to be real (parametric bootstrap; 0 = no confidence). The dynamic model: "
+                   "at least this many studies drawn from it (at most 10x), more until 500 simulated candidate changes "
+                   "recalibrate its posterior probability (0 = raw posterior).")
 @click.option("--seed", type=int,
               help="Starting number of the simulated studies (seed; default: the fit's seed); the same seed gives "
                    "the same confidences.")
@@ -680,8 +681,10 @@ def calibration(ctx, fit_id, studies, seed):
     table = pd.DataFrame(result["bins"])
     _emit(table, "table", None, title="Move confidence against the share of moves that are real")
     ece = "n/a" if result["ece"] is None else f"{result['ece']:.3f}"
+    floor = "" if result.get("ece_floor_95") is None else \
+        f"; up to {result['ece_floor_95']:.3f} would be chance on {result['moves']} moves"
     click.echo(f"fit {result['fit']}: {result['studies']} simulated studies, {result['moves']} moves; "
-               f"expected calibration error {ece} (0 = confidence matches how often moves are real)")
+               f"expected calibration error {ece} (0 = confidence matches how often moves are real{floor})")
 
 
 @main.command()

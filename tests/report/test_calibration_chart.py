@@ -27,3 +27,13 @@ def test_calibration_sentence_says_what_the_error_means():
     assert "probability" in _calibration_sentence({"studies": 20, "ece": 0.03})
     assert "rough guide" in _calibration_sentence({"studies": 20, "ece": 0.2})
     assert _calibration_sentence(None) == ""
+
+
+def test_calibration_sentence_weighs_the_error_against_chance():
+    # Source: the check's ece_floor_95 (tracker.pipeline.calibration.ece_floor): an ECE no larger
+    # than a perfectly calibrated confidence shows by chance on that many moves is not evidence of
+    # miscalibration; a larger one is.
+    few = _calibration_sentence({"studies": 20, "ece": 0.09, "ece_floor_95": 0.12, "moves": 30})
+    assert "0.12" in few and "30 moves" in few and "probability" in few and "rough guide" not in few
+    many = _calibration_sentence({"studies": 20, "ece": 0.09, "ece_floor_95": 0.03, "moves": 900})
+    assert "rough guide" in many

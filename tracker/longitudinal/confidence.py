@@ -60,8 +60,13 @@ FEATURES = ("ties_from", "ties_to", "stay_after", "stay_before", "affinity_to", 
 
 
 def simulate_period(labels: np.ndarray, density: np.ndarray, directed: Sequence[bool],
-                    rng: np.random.Generator) -> list:
+                    rng: np.random.Generator, values: Mapping | None = None) -> list:
     """One period drawn from a blockmodel: a Bernoulli tie per pair with its block's density.
+
+    With ``values`` (``{(r, k, l): (tie values, their probabilities)}``)
+    each tie of block ``(k, l)`` of relation ``r`` carries a value drawn from
+    that law (e.g. the events per tie observed in the block); blocks not in
+    ``values``, and every tie without ``values``, carry 1.
 
     Parameters
     ----------
@@ -76,7 +81,8 @@ def simulate_period(labels: np.ndarray, density: np.ndarray, directed: Sequence[
     Returns
     -------
     list of scipy.sparse.csr_array
-        One 0/1 matrix per relation (symmetric when undirected, zero diagonal).
+        One matrix per relation (symmetric when undirected, zero diagonal), 0/1
+        unless ``values`` are given.
         Each block's number of ties is Binomial(possible pairs, density), placed
         on distinct pairs drawn uniformly: the same law as one coin per pair,
         with memory proportional to the ties.
@@ -98,7 +104,7 @@ def simulate_period(labels: np.ndarray, density: np.ndarray, directed: Sequence[
     members = [np.flatnonzero(labels == k) for k in range(n_pos)]
     out = []
     for r, is_directed in enumerate(directed):
-        rows, cols = [], []
+        rows, cols, vals = [], [], []
         for k in range(n_pos):
             for l in range(n_pos) if is_directed else range(k, n_pos):
                 p = min(max(float(density[r, k, l]), 0.0), 1.0)
@@ -118,11 +124,15 @@ def simulate_period(labels: np.ndarray, density: np.ndarray, directed: Sequence[
                 i, j = _decode(idx, nk, nl, k == l, is_directed)
                 rows.append(members[k][i])
                 cols.append(members[l][j])
+                law = (values or {}).get((r, k, l))
+                vals.append(np.ones(m) if law is None else rng.choice(np.asarray(law[0], dtype=np.float64), size=m,
+                                                                      p=np.asarray(law[1], dtype=np.float64)))
         r_all = np.concatenate(rows) if rows else np.zeros(0, dtype=np.int64)
         c_all = np.concatenate(cols) if cols else np.zeros(0, dtype=np.int64)
+        v_all = np.concatenate(vals) if vals else np.zeros(0)
         if not is_directed:
-            r_all, c_all = np.concatenate([r_all, c_all]), np.concatenate([c_all, r_all])
-        out.append(sp.csr_array((np.ones(r_all.size), (r_all, c_all)), shape=(n, n)))
+            r_all, c_all, v_all = np.concatenate([r_all, c_all]), np.concatenate([c_all, r_all]), np.tile(v_all, 2)
+        out.append(sp.csr_array((v_all, (r_all, c_all)), shape=(n, n)))
     return out
 
 
@@ -279,6 +289,30 @@ class MoveCalibrator:
             base = make_pipeline(StandardScaler(), LogisticRegression(max_iter=1000))
             self.model_ = CalibratedClassifierCV(base, method="isotonic", cv=3).fit(features, real)
         return self
+
+    def steps(self) -> dict:
+        """The monotone map as ``{"raw": [...], "confidence": [...]}`` (knots; linear in between, clipped outside).
+
+        Only for ``monotone=True``; without a fitted map, no knots and every
+        move gets ``rate`` (the pooled share of real moves; None: unknown).
+        """
+        if not self.monotone:
+            raise ValueError("only a monotone map has steps")
+        rate = None if np.isnan(self.rate_) else float(self.rate_)
+        if self.model_ is None:
+            return {"raw": [], "confidence": [], "rate": rate}
+        return {"raw": [float(x) for x in self.model_.X_thresholds_],
+                "confidence": [float(y) for y in self.model_.y_thresholds_], "rate": rate}
+
+    @staticmethod
+    def apply_steps(steps: dict, raw: np.ndarray) -> np.ndarray:
+        """Confidence of raw probabilities under a stored map (:meth:`steps`); NaN stays NaN."""
+        raw = np.asarray(raw, dtype=np.float64)
+        if not steps.get("raw"):
+            rate = steps.get("rate")
+            return np.where(np.isfinite(raw), np.nan if rate is None else float(rate), np.nan)
+        out = np.interp(raw, steps["raw"], steps["confidence"])
+        return np.where(np.isfinite(raw), np.clip(out, 0.0, 1.0), np.nan)
 
     def predict(self, features: np.ndarray) -> np.ndarray:
         features = np.asarray(features, dtype=np.float64)

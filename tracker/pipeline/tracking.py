@@ -93,9 +93,10 @@ def reported_changes(moves: pd.DataFrame, params: dict) -> pd.DataFrame:
     """
     conf = moves["confidence"].to_numpy(dtype=np.float64)
     drop = np.isfinite(conf) & (conf < REPORT_THRESHOLD)
+    studies = params.get("calibration_studies", max(int(params["draws"]), 2))
     params["confidence"] = (
-        f"calibrated: posterior change probability mapped to the share of real moves on {max(int(params['draws']), 2)} "
-        "x 2 studies simulated from the fit (isotonic regression)" if params["draws"]
+        f"calibrated: posterior change probability mapped to the share of real moves on {studies} studies "
+        "drawn from the fitted model and refitted (isotonic regression)" if params["draws"]
         else "raw posterior change probability of the dynamic model (mean-field, plug-in parameters), uncalibrated: "
              "no simulation was run (draws 0); it is over-confident on sparse data")
     params["report_threshold"] = REPORT_THRESHOLD
@@ -205,7 +206,7 @@ def move_confidence_of(store, info: dict, periods: list, alignment, moves: pd.Da
     from tracker.pipeline.calibration import calibrated_confidence
 
     return calibrated_confidence(store, info, periods, alignment, moves, max(int(draws), 2), seed,
-                                 align_params=params)
+                                 align_params=params, record=params)
 
 
 def _int(value):

@@ -411,13 +411,17 @@ def _calibration_sentence(check) -> str:
     if not isinstance(check, Mapping):
         return ""
     ece = check.get("ece")
-    text = (f"Studies like this one were simulated {check.get('studies')} times from the fitted positions, "
+    text = (f"Studies like this one were simulated {check.get('studies')} times from the fitted model, "
             "refitted the same way, and their moves, whose truth is known, were scored. Each point is a "
             "group of moves: across, the confidence they were given; up, how many of them were real. "
             "On the dashed line, a confidence of 0.7 means 7 such moves in 10 are real.")
     if ece is not None:
+        floor = check.get("ece_floor_95")
+        noise = floor is not None and ece <= floor
         text += (f" The average gap (expected calibration error) is {ece:.2f}"
-                 + (": the confidence can be read as a probability." if ece <= 0.05 else
+                 + (f"; on {check.get('moves')} moves a perfectly calibrated confidence would show up to "
+                    f"{floor:.2f} by chance" if floor is not None else "")
+                 + (": the confidence can be read as a probability." if ece <= 0.05 or noise else
                     ": read the confidence as a rough guide, not an exact probability."))
     return text
 
