@@ -429,6 +429,7 @@ class Study:
         # Approximations a method made (large periods), one line per period.
         notes = [f"{r.period}: {r.diagnostics['approximation']['note']}" for r in results
                  if isinstance(r.diagnostics.get("approximation"), dict)]
+        notes += sorted({r.diagnostics["fit_test"]["note"] for r in results if r.diagnostics.get("fit_test", {}).get("note")})
 
         stored = self.store.fit_periods(fit_id)
         auto = auto_table(stored[stored["period"].isin(labels)])

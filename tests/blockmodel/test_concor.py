@@ -160,3 +160,19 @@ def test_bad_options_raise_usage_errors():
         ConcorPositions(2, max_iter=0).fit([x], [True])
     with pytest.raises(UsageError):
         ConcorPositions(2, tol=0).fit([x], [True])
+
+
+def test_periods_above_the_size_limit_are_refused_with_the_alternative():
+    # The limit is forced low so that the refusal is exercised on a small network
+    # (the default, SIZE_LIMIT, is 8,000 actors: four dense n x n float64 arrays, 2 GB).
+    import networkx as nx
+
+    g = nx.karate_club_graph()  # networkx's copy of Zachary's club, 34 actors
+    a = sp.csr_array(nx.to_scipy_sparse_array(g, dtype=float))
+    with pytest.raises(UsageError, match=r"CONCOR needs a dense 34 x 34 .* at most 20 actors\. Use --method structural"):
+        ConcorPositions(2, size_limit=20).fit([a], [False])
+    exact = ConcorPositions(2, size_limit=34).fit([a], [False]).labels_  # at the limit it runs, unchanged
+    assert exact.tolist() == ConcorPositions(2).fit([a], [False]).labels_.tolist()
+    assert len(set(exact.tolist())) == 2
+    with pytest.raises(UsageError, match="size_limit must be a whole number"):
+        ConcorPositions(2, size_limit=1).fit([a], [False])

@@ -32,7 +32,15 @@ from tracker.blockmodel.equivalence import (
 from tracker.blockmodel.evolution import check_prior, prior_disagreement
 from tracker.errors import UsageError
 
-__all__ = ["ConcorPositions"]
+__all__ = ["ConcorPositions", "SIZE_LIMIT"]
+
+# Most actors CONCOR accepts.  The iteration correlates the whole n x n
+# correlation matrix with itself (each step a dense n x n product), so it holds
+# about four n x n float64 arrays: 2 GB at 8,000 actors, 80 GB at 50,000.  No
+# exact sparse form exists (every iterate is dense even when the ties are
+# sparse), so above the limit the fit is refused with the alternative rather
+# than replaced by another method.
+SIZE_LIMIT = 8000
 
 
 class ConcorPositions:
@@ -85,6 +93,10 @@ class ConcorPositions:
         separated against its history (or joined against it).  0 changes nothing
         (evolutionary clustering, Chakrabarti, Kumar & Tomkins 2006; membership
         form of Chi et al. 2007).
+    size_limit : int, optional
+        Most actors accepted (default :data:`SIZE_LIMIT`, 8,000); a larger
+        period is refused with a :class:`tracker.errors.UsageError` naming the
+        limit and the alternatives, never silently fitted by another method.
 
     Attributes
     ----------
@@ -108,8 +120,10 @@ class ConcorPositions:
        Psychology 12, 328-383.
     """
 
-    def __init__(self, n_positions, *, seed=0, max_iter=50, tol=1e-6, prior_labels=None, change_penalty=0.0):
+    def __init__(self, n_positions, *, seed=0, max_iter=50, tol=1e-6, prior_labels=None, change_penalty=0.0,
+                 size_limit=None):
         self.n_positions = n_positions
+        self.size_limit = size_limit
         self.seed = seed
         self.max_iter = max_iter
         self.tol = tol
@@ -124,6 +138,14 @@ class ConcorPositions:
         if not self.tol > 0:
             raise UsageError("tol must be positive; e.g. tol=1e-6")
         _, _, n = _validate(matrices, directed)
+        limit = SIZE_LIMIT if self.size_limit is None else self.size_limit
+        if isinstance(limit, bool) or not isinstance(limit, (int, np.integer)) or limit < 2:
+            raise UsageError(f"size_limit must be a whole number >= 2 (got {limit!r}); e.g. size_limit=8000")
+        if n > limit and 1 < n_positions < n:
+            raise UsageError(
+                f"CONCOR needs a dense {n:,} x {n:,} correlation matrix (about {32 * n * n / 1e9:.0f} GB); it runs "
+                f"for at most {limit:,} actors. Use --method structural (exact up to 8,000 actors, then an "
+                "embedded approximation) or --method dynamic, or fit fewer actors")
         self.n_iter_ = []
         self.converged_ = True
         if n_positions >= n:

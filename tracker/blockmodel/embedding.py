@@ -71,7 +71,8 @@ from scipy.cluster.hierarchy import fcluster, linkage
 from scipy.linalg import solve_triangular
 from scipy.sparse.linalg import LinearOperator
 
-__all__ = ["EXACT_LIMIT", "profile_matrix", "profile_classes", "embed_profiles", "embedded_positions"]
+__all__ = ["EXACT_LIMIT", "profile_matrix", "profile_classes", "embed_profiles", "embedded_positions",
+           "within_sum_of_squares", "smoothed_embedded_positions"]
 
 # Largest number of tied actors for which the exact method runs: its condensed
 # distance matrix, the linkage's copy and one row block take about
@@ -268,3 +269,79 @@ def embedded_positions(coords: np.ndarray, counts: np.ndarray, n_positions: int,
     runs.append(KMeans(k, init="k-means++", n_init=2, random_state=seed).fit(coords, sample_weight=weights))
     best = min(runs, key=lambda r: r.inertia_)
     return np.asarray(best.labels_, dtype=np.int64)
+
+
+def within_sum_of_squares(coords: np.ndarray, counts: np.ndarray, labels: np.ndarray) -> float:
+    """Weighted within-position sum of squares :math:`\\sum_i w_i \\lVert x_i - \\bar x_{z_i} \\rVert^2` (Ward 1963)."""
+    weights = counts.astype(np.float64)
+    k = int(labels.max()) + 1 if labels.size else 0
+    mass = np.bincount(labels, weights=weights, minlength=k)
+    sums = np.zeros((k, coords.shape[1]))
+    np.add.at(sums, labels, coords * weights[:, None])
+    centres = sums / np.where(mass > 0, mass, 1.0)[:, None]
+    return float((weights * ((coords - centres[labels]) ** 2).sum(axis=1)).sum())
+
+
+def smoothed_embedded_positions(coords: np.ndarray, classes: np.ndarray, counts: np.ndarray, prior: np.ndarray,
+                                change_penalty: float, n_positions: int, seed: int) -> tuple[np.ndarray, float]:
+    r"""Evolutionary positions in the embedding: k-means with a cost per change of position.
+
+    The exact smoothed method (:mod:`tracker.blockmodel.evolution`) clusters
+    :math:`\delta'_{ij} = d_{ij}^2 + \lambda [z^{prev}_i \ne z^{prev}_j]`.
+    In the embedding the same penalty is a Euclidean distance: appending to
+    each actor the indicator of its previous position scaled by
+    :math:`\sqrt{\lambda / 2}` adds exactly :math:`\lambda` to the squared
+    distance of a pair whose previous positions differ and nothing to a pair
+    that shared one, so weighted k-means (Ward's criterion) on the augmented
+    coordinates minimises the embedded within-position sum of squares plus the
+    pair penalty, the objective of the exact method on embedded distances
+    (evolutionary k-means, Chakrabarti, Kumar & Tomkins 2006).  One difference,
+    stated: an actor without a previous position gets a zero indicator, so its
+    pairs with known actors pay :math:`\lambda / 2` (the exact method: 0),
+    the same whatever their previous position, which leaves it free to join
+    any position.
+
+    :math:`\lambda = c \cdot W_0 / n`, with :math:`W_0` the weighted
+    within-position sum of squares of the unsmoothed embedded positions (the
+    per-actor objective of :func:`tracker.blockmodel.evolution.per_actor_scale`,
+    measured in the embedding).
+
+    Parameters
+    ----------
+    coords : numpy.ndarray, shape (m, k)
+        Embedded distinct profiles (:func:`embed_profiles`).
+    classes : numpy.ndarray of int, shape (n,)
+        Each actor's distinct profile (:func:`profile_classes`).
+    counts : numpy.ndarray of int, shape (m,)
+    prior : numpy.ndarray of int, shape (n,)
+        Previous positions, -1 unknown.
+    change_penalty : float
+        ``c`` (0 or more).
+
+    Returns
+    -------
+    (labels, lambda)
+        One label per actor, and the absolute penalty :math:`\lambda`.
+    """
+    if change_penalty < 0:
+        raise ValueError("change_penalty must be 0 or more")
+    n = classes.size
+    alone = embedded_positions(coords, counts, n_positions, seed)
+    scale = within_sum_of_squares(coords, counts, alone) / max(n, 1)
+    if scale <= 0:  # every position tight: size the penalty by the spread of all profiles
+        scale = within_sum_of_squares(coords, counts, np.zeros(coords.shape[0], dtype=np.int64)) / max(n, 1)
+    lam = float(change_penalty) * scale
+    prior = np.asarray(prior, dtype=np.int64)
+    known = prior >= 0
+    width = int(prior.max()) + 1 if known.any() else 0
+    # distinct (profile, previous position) pairs, each weighted by its actors
+    keys = classes.astype(np.int64) * (width + 1) + (prior + 1)
+    _, first, inverse = np.unique(keys, return_index=True, return_inverse=True)
+    inverse = inverse.reshape(-1)
+    weights = np.bincount(inverse)
+    indicator = np.zeros((first.size, width))
+    rows = np.flatnonzero(known[first])
+    indicator[rows, prior[first[rows]]] = np.sqrt(lam / 2.0)
+    augmented = np.hstack([coords[classes[first]], indicator])
+    labels = embedded_positions(augmented, weights, n_positions, seed)
+    return labels[inverse], lam

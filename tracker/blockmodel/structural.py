@@ -29,6 +29,7 @@ from tracker.blockmodel.embedding import (
     N_COMPONENTS,
     embed_profiles,
     embedded_positions,
+    smoothed_embedded_positions,
     profile_classes,
     profile_matrix,
 )
@@ -103,7 +104,11 @@ class StructuralPositions:
         ``c`` of :mod:`tracker.blockmodel.evolution`: with ``prior_labels``, the
         dissimilarity clustered (squared distance for Ward, else the distance or
         ``1 - r``) of every pair apart before grows by ``c`` times the per-actor
-        objective of the unsmoothed partition.  0 changes nothing.
+        objective of the unsmoothed partition.  0 changes nothing.  Above
+        ``exact_limit`` the same penalty enters the embedding (k-means on the
+        embedded profiles plus the scaled indicator of the previous position;
+        :func:`tracker.blockmodel.embedding.smoothed_embedded_positions`), and
+        ``approximation_`` says so.
 
     Attributes
     ----------
@@ -166,11 +171,9 @@ class StructuralPositions:
         self.approximation_ = None
         if n_positions >= n or n_positions == 1:
             labels = np.arange(n) if n_positions >= n else np.zeros(n, dtype=np.int64)
-        elif (prior := check_prior(self.prior_labels, n)) is not None and self.change_penalty:
-            if n > limit:
-                raise UsageError(f"evolutionary smoothing of structural positions needs the exact distances, which "
-                                 f"are not affordable for {n} actors (limit {limit}); fit with --smooth off, or use "
-                                 "the dynamic model (--method dynamic)")
+        elif (prior := check_prior(self.prior_labels, n)) is not None and self.change_penalty and n > limit:
+            labels = self._fit_large_smoothed(mats, dirs, n, n_positions, limit, prior)
+        elif prior is not None and self.change_penalty:
             if self.measure == "euclidean":
                 dist = structural_distances(matrices, directed)
             else:
@@ -201,6 +204,28 @@ class StructuralPositions:
         self.labels_ = _first_appearance(labels)
         self.n_positions_ = int(self.labels_.max()) + 1 if n else 0
         return self
+
+    def _fit_large_smoothed(self, mats, dirs, n: int, n_positions: int, limit: int, prior: np.ndarray) -> np.ndarray:
+        """Evolutionary positions above the exact limit: k-means with the change penalty in the embedding."""
+        profiles = profile_matrix(mats, dirs)
+        classes, reps, counts = profile_classes(profiles)
+        with threadpool_limits(limits=1):  # tall, thin products (see _fit_large)
+            coords, energy, residual = embed_profiles(
+                profiles[reps], self.components, self.seed, standardise=self.measure == "correlation")
+            labels, lam = smoothed_embedded_positions(coords, classes, counts, prior, float(self.change_penalty),
+                                                      n_positions, self.seed)
+        self.change_cost_ = lam
+        self.approximation_ = {
+            "actors": n, "distinct": int(reps.size), "exact_limit": int(limit),
+            "method": "randomized SVD + weighted k-means with a change penalty", "components": int(coords.shape[1]),
+            "energy": round(energy, 4), "max_residual": float(residual.max()),
+            "mean_residual": float(np.average(residual, weights=counts)),
+            "note": (f"{n} actors exceed the exact limit of {limit}: smoothed positions approximated by k-means "
+                     f"on a {coords.shape[1]}-component randomized SVD of the {reps.size} distinct profiles plus "
+                     f"the previous position, each change costing {lam:.3g} (keeps {100 * energy:.1f}% of the "
+                     f"profiles' squared length)"),
+        }
+        return labels
 
     def _fit_large(self, mats, dirs, n: int, n_positions: int, method: str, limit: int) -> np.ndarray:
         """Exact classes of identical profiles, then exact linkage or the embedding (see the class)."""

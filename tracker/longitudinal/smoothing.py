@@ -51,6 +51,13 @@ with ``c = 0.5`` and 11 among 18 with ``c = 1``; with a dense core
 (0.4/0.04) ``c = 0`` reported 137-174 moves per study, ``c = 0.5`` 4-10.
 ``c = 0`` calls the method exactly as without smoothing.
 
+**Large periods.**  Above the exact limit of structural equivalence (8,000
+tied actors, :data:`tracker.blockmodel.embedding.EXACT_LIMIT`) the penalty is
+applied in the embedding of the profiles, with memory proportional to the ties
+(:func:`tracker.blockmodel.embedding.smoothed_embedded_positions`), and the
+period's diagnostics say so; CONCOR refuses periods above its own limit
+(:data:`tracker.blockmodel.concor.SIZE_LIMIT`) with the alternatives.
+
 References
 ----------
 .. [1] Chakrabarti, D., Kumar, R. & Tomkins, A. (2006). Evolutionary clustering. KDD.

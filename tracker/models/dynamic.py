@@ -303,14 +303,19 @@ def select_dynamic(periods: Sequence[tuple], k_range: tuple[int, int] = (2, 8), 
     n = len({str(a) for item in periods for a in item[0]})
     hi = min(hi, n)
     lo = min(lo, hi)
-    fits, table = [], []
-    for k in range(lo, hi + 1):
-        fit = DynamicSBM(k, seed=seed, **options).fit(periods)
-        fits.append(fit)
-        table.append({"n_positions": k, "elbo": fit.elbo_, "icl": fit.icl_, "chosen": False})
+    # The candidates are independent fits: one batch of tasks (every core; each fit runs its
+    # starts in its own task), same answer whatever the number of workers.
+    fits = map_tasks(_fit_candidate, [(k, seed, options, periods) for k in range(lo, hi + 1)],
+                     label="dynamic model, numbers of positions")
+    table = [{"n_positions": fit.n_positions, "elbo": fit.elbo_, "icl": fit.icl_, "chosen": False} for fit in fits]
     best = int(np.argmax([row["icl"] for row in table]))
     table[best]["chosen"] = True
     return fits[best], table
+
+
+def _fit_candidate(k: int, seed: int, options: dict, periods) -> DynamicSBM:
+    """One candidate of :func:`select_dynamic` (a task)."""
+    return DynamicSBM(k, seed=seed, **options).fit(periods)
 
 
 def _one_start(data, B: int, start: int, seed: int, max_iter: int, tol: float):
