@@ -99,7 +99,8 @@ def birth_candidates(occ: np.ndarray, evict: float = EVICT) -> np.ndarray:
     before = np.concatenate([[0.0], np.cumsum(occ)])[:-1]
     after = np.cumsum(occ[::-1])[::-1]
     b = np.arange(occ.size)
-    return b[(b >= 1) & (before <= evict) & (after >= 0.5)]
+    slack = 1e-9 * max(1.0, float(occ.sum()))  # rounding of the cumulative sums
+    return b[(b >= 1) & (before <= evict + slack) & (after >= 0.5 - slack)]
 
 
 def choose_births(data, state, params, B: int, rng, max_iter: int, tol: float, history: list):
