@@ -212,8 +212,9 @@ def truth_start(s: dict):
     active = np.ones((Tn, B), dtype=bool)
     active[: s["found"], K] = False
     params = dyn._m_step(data, state, B, active)
-    state, params, history, n_iter = dyn._em_loop(data, state, params, B, np.random.default_rng(0), 100, 1e-6)
     model = dyn.DynamicSBM(B)
+    state, params, history, n_iter = dyn._em_with_prior(data, state, params, B, np.random.default_rng(0), 100, 1e-6,
+                                                        model.transition_prior)
     model._set_results(data, state, params, history, n_iter, B)
     return model
 
