@@ -172,20 +172,16 @@ def model_periods(s: dict) -> tuple[list, list]:
     return periods, index
 
 
-def _model_arrays(model, s: dict) -> tuple[np.ndarray, np.ndarray]:
+def model_arrays(model, s: dict) -> tuple[np.ndarray, np.ndarray]:
     """Change probabilities and most probable positions of a fitted model on the study's (T, n) grid."""
     Tn, n = s["labels"].shape
     change = np.full((Tn, n), np.nan)
     lab = np.full((Tn, n), -1)
-    order = np.array([int(a[1:]) for a in model.actors_])
-    data_index = {t: None for t in range(Tn)}
     present = s["labels"] >= 0
     for t in range(Tn):
-        idx = np.flatnonzero(present[t])
-        data_index[t] = idx
+        idx = np.flatnonzero(present[t])  # the order model_periods gave the model
         change[t, idx] = model.change_probability_[t]
         lab[t, idx] = model.labels_[t]
-    del order
     return change, lab
 
 
@@ -266,7 +262,7 @@ def main() -> None:
             rows.append(dict(scores(*oracle_change(s), s), setting=setting, row="oracle", seed=seed))
             if args.fits:
                 for name, make in (("truth-start", truth_start), ("fitted", fitted)):
-                    rows.append(dict(scores(*_model_arrays(make(s), s), s), setting=setting, row=name, seed=seed))
+                    rows.append(dict(scores(*model_arrays(make(s), s), s), setting=setting, row=name, seed=seed))
     frame = pd.DataFrame(rows)
     table = frame.groupby(["setting", "row"], sort=False).mean(numeric_only=True).drop(columns="seed")
     print(f"seeds {args.seeds}, mean over seeds")

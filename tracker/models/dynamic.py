@@ -161,14 +161,14 @@ class DynamicSBM:
     likelihood gives exact zeros to kinds of move not seen (such a move can
     then never be found) and large values to kinds seen once or twice (false
     moves, over-confident change probabilities).  Each row of ``P`` gets the
-    prior :math:`P_k \sim \mathrm{Dirichlet}(1 + c\,m_k(\rho))` with
-    :math:`m_{kk} = 1 - \rho`, :math:`m_{kl} = \rho / (B - 1)`; the MAP is
-    :math:`P_{kl} \propto n_{kl} + c\,m_{kl}(\rho)` (expected counts
+    prior :math:`P_k \\sim \\mathrm{Dirichlet}(1 + c\\,m_k(\\rho))` with
+    :math:`m_{kk} = 1 - \\rho`, :math:`m_{kl} = \\rho / (B - 1)`; the MAP is
+    :math:`P_{kl} \\propto n_{kl} + c\\,m_{kl}(\\rho)` (expected counts
     ``n``), a hierarchical pooling of the rows (Dirichlet priors on HMM
     transitions: MacKay 1997; Beal 2003, ch. 3; MAP by EM: Dempster, Laird
     & Rubin 1977, sec. 4.1).  ``rho`` is set by empirical Bayes to the pooled
     maximum-likelihood move rate of the fit and held fixed within each EM
-    run, which climbs the bound plus :math:`\log p(P)`; the run is repeated
+    run, which climbs the bound plus :math:`\\log p(P)`; the run is repeated
     from its end until ``rho`` settles.  The starts and the births are chosen
     on the maximum-likelihood fit (unchanged by the prior); the reported fit
     is the MAP run from there.  ``c = 300`` was chosen on planted studies
