@@ -66,7 +66,7 @@ __all__ = ["DynamicSBM", "select_dynamic"]
 _PROB_FLOOR = 1e-10
 _BIRTH_EVICT = 3.0  # most actor-periods a birth may move out of a position  # keeps the forward recursion away from exact zeros
 _PRIOR_ROUNDS = 4  # most refits that re-centre the transition prior on the fit's pooled move rate
-TRANSITION_PRIOR = 300.0  # default strength of the prior on the transition rows, in pseudo-steps per row (see _log_prior)
+TRANSITION_PRIOR = 300.0  # default strength of the transition prior, pseudo-steps per row (see _log_prior)
 
 
 class DynamicSBM:
@@ -827,7 +827,7 @@ def _theta(data: _Data, state: _State) -> np.ndarray:
 
 
 def _m_step(data: _Data, state: _State, B: int, active=None, prior: float = 0.0, rho: float = 0.1) -> _Params:
-    """Closed-form M-step; with ``prior > 0`` the MAP of ``P`` and then of the prior's centre (see :func:`_log_prior`)."""
+    """Closed-form M-step; with ``prior > 0``, ``P`` is the MAP under the prior centred at ``rho`` (:func:`_log_prior`)."""
     pi = state.g0.sum(axis=0)
     pi = np.maximum(pi / pi.sum(), _PROB_FLOOR)
     pi /= pi.sum()
