@@ -39,6 +39,10 @@ there); ``p_map``/``r_map`` precision and recall of the pipeline's rule
 the mean squared error of the change probability over all actor-steps
 (calibration and sharpness together).
 
+``oracle xF`` (``--scales F,...``): the oracle on the same studies drawn with
+both rates multiplied by ``F`` (same contrast, ``F`` times the ties): how many
+more ties the target would need.
+
 Exact-period recall is bounded by quiet periods: an actor with no tie in the
 period it moves cannot be placed there, however good the method.  The row
 ``oracle`` says how much of the target that leaves.
@@ -65,9 +69,13 @@ from tracker.models import dynamic as dyn  # noqa: E402
 B = K + 1  # four planted positions and the one founded at T // 2
 
 
-def study(seed: int, setting: str) -> dict:
-    """One planted study as arrays: labels (T, n) with -1 where absent, counts per period, moves (T, n)."""
-    r_in, r_out = SETTINGS[setting]
+def study(seed: int, setting: str, scale: float = 1.0) -> dict:
+    """One planted study as arrays: labels (T, n) with -1 where absent, counts per period, moves (T, n).
+
+    ``scale`` multiplies both rates of the setting (same contrast, more ties), to ask how many
+    ties the target needs; 1 is the setting as bench_recovery.py has it.
+    """
+    r_in, r_out = (scale * r for r in SETTINGS[setting])
     events, roster, truth, planted, founded = generate(seed, r_in, r_out)
     n = N + 1
     years = sorted(truth)
@@ -253,6 +261,7 @@ def main() -> None:
     parser.add_argument("--seeds", default="101-105")
     parser.add_argument("--settings", default=",".join(SETTINGS))
     parser.add_argument("--fits", action="store_true", help="also the model begun at the truth and the default fit")
+    parser.add_argument("--scales", default="", help="also the oracle with both rates multiplied, e.g. 1.5,2,3")
     args = parser.parse_args()
     lo, hi = (int(x) for x in args.seeds.split("-"))
     rows = []
@@ -260,6 +269,10 @@ def main() -> None:
         for seed in range(lo, hi + 1):
             s = study(seed, setting)
             rows.append(dict(scores(*oracle_change(s), s), setting=setting, row="oracle", seed=seed))
+            for scale in [float(x) for x in args.scales.split(",") if x]:
+                scaled = study(seed, setting, scale)
+                rows.append(dict(scores(*oracle_change(scaled), scaled), setting=setting, row=f"oracle x{scale:g}",
+                                 seed=seed))
             if args.fits:
                 for name, make in (("truth-start", truth_start), ("fitted", fitted)):
                     rows.append(dict(scores(*model_arrays(make(s), s), s), setting=setting, row=name, seed=seed))
