@@ -24,8 +24,9 @@ settings, imported, not copied).  Three rows per setting, mean over seeds:
     optimum (if it does well here but not in ``fitted``) from a failure of
     estimation or of the model (if it does badly here too).
 ``fitted``
-    ``DynamicSBM(5).fit`` as the default pipeline runs it (``--fits``; starts,
-    births), on the same matrices.
+    ``DynamicSBM(5, transition_prior=P).fit`` as the pipeline runs it
+    (``--fits``; starts, births), on the same matrices; ``--prior P``
+    (default 300, the measured strength; 0 is the model's default, off).
 
 Columns: ``recall@p0.9`` is the exact-period recall at the lowest threshold
 of the change probability at which precision is still >= 0.9 (the best a
@@ -193,7 +194,7 @@ def model_arrays(model, s: dict) -> tuple[np.ndarray, np.ndarray]:
     return change, lab
 
 
-def truth_start(s: dict):
+def truth_start(s: dict, prior: float = dyn.MEASURED_PRIOR):
     """The dynamic model's EM begun at the planted memberships (fifth position closed before its founding)."""
     periods, _ = model_periods(s)
     data = dyn._prepare_periods(periods, False, False)
@@ -216,16 +217,16 @@ def truth_start(s: dict):
     active = np.ones((Tn, B), dtype=bool)
     active[: s["found"], K] = False
     params = dyn._m_step(data, state, B, active)
-    model = dyn.DynamicSBM(B)
+    model = dyn.DynamicSBM(B, transition_prior=prior)
     state, params, history, n_iter = dyn._em_with_prior(data, state, params, B, np.random.default_rng(0), 100, 1e-6,
-                                                        model.transition_prior)
+                                                        prior)
     model._set_results(data, state, params, history, n_iter, B)
     return model
 
 
-def fitted(s: dict):
+def fitted(s: dict, prior: float = dyn.MEASURED_PRIOR):
     periods, _ = model_periods(s)
-    return dyn.DynamicSBM(B, seed=0).fit(periods)
+    return dyn.DynamicSBM(B, seed=0, transition_prior=prior).fit(periods)
 
 
 def scores(change: np.ndarray, lab: np.ndarray, s: dict) -> dict:
@@ -261,6 +262,8 @@ def main() -> None:
     parser.add_argument("--seeds", default="101-105")
     parser.add_argument("--settings", default=",".join(SETTINGS))
     parser.add_argument("--fits", action="store_true", help="also the model begun at the truth and the default fit")
+    parser.add_argument("--prior", type=float, default=dyn.MEASURED_PRIOR,
+                        help="transition prior strength of the fitted rows (the model's default is 0, off)")
     parser.add_argument("--scales", default="", help="also the oracle with both rates multiplied, e.g. 1.5,2,3")
     args = parser.parse_args()
     lo, hi = (int(x) for x in args.seeds.split("-"))
@@ -275,7 +278,8 @@ def main() -> None:
                                  seed=seed))
             if args.fits:
                 for name, make in (("truth-start", truth_start), ("fitted", fitted)):
-                    rows.append(dict(scores(*model_arrays(make(s), s), s), setting=setting, row=name, seed=seed))
+                    rows.append(dict(scores(*model_arrays(make(s, args.prior), s), s), setting=setting, row=name,
+                                     seed=seed))
     frame = pd.DataFrame(rows)
     table = frame.groupby(["setting", "row"], sort=False).mean(numeric_only=True).drop(columns="seed")
     print(f"seeds {args.seeds}, mean over seeds")

@@ -284,10 +284,7 @@ def test_pairwise_posterior_matches_enumeration_across_an_absence():
 def test_change_probability_is_consistent_with_marginals_and_finds_a_planted_move():
     # source: definition: the pairwise posterior's margins are the marginal posteriors;
     # a planted single move (two clear blocks, an actor switching in period 2) has
-    # change probability near 1 there and near 0 elsewhere (Matias & Miele 2017).  Not
-    # exactly 0: the transition prior keeps every kind of move possible, and actor 14's
-    # first period (1 tie inside, 2 to the other block) honestly leaves ~0.1 that it
-    # started in the other block (Bayes' rule with the fit's move rate ~0.01; measured 0.097)
+    # change probability near 1 there and near 0 elsewhere (Matias & Miele 2017)
     rng = np.random.default_rng(5)
     n, B = 40, 2
     z = np.repeat([0, 1], n // 2)
@@ -305,8 +302,7 @@ def test_change_probability_is_consistent_with_marginals_and_finds_a_planted_mov
         assert np.allclose(pw.sum(axis=1), fit.posteriors_[t], atol=1e-6)
     assert fit.change_probability_[2][0] > 0.95
     others = np.concatenate([fit.change_probability_[t][1:] for t in (1, 2, 3)] + [fit.change_probability_[1][:1]])
-    assert others.max() < 0.15
-    assert others.mean() < 0.01
+    assert others.max() < 0.05
 
 
 @pytest.mark.parametrize("snr, low, high", [(0.03, -0.05, 0.1), (0.7, 0.4, 1.0), (3.0, 0.9, 1.0)])

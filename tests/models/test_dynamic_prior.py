@@ -99,7 +99,7 @@ def test_the_prior_centre_is_the_pooled_move_rate_of_the_fit():
     # planted moves among 40 x 3 steps
     rng = np.random.default_rng(9)
     periods = two_block_periods(rng, moves=[(1, 1), (30, 3)])
-    fit = DynamicSBM(2, seed=0, model="bernoulli", births=False).fit(periods)
+    fit = DynamicSBM(2, seed=0, model="bernoulli", births=False, transition_prior=dyn.MEASURED_PRIOR).fit(periods)
     counts = sum(fit.pairwise_[t].sum(axis=0) for t in range(1, 4))
     assert fit.move_rate_ == pytest.approx(1 - np.trace(counts) / counts.sum(), abs=2e-3)
     assert fit.move_rate_ == pytest.approx(2 / 120, abs=0.01)
