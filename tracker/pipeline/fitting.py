@@ -254,7 +254,10 @@ def fit_dynamic(snapshots: list, settings) -> list:
            "degree_corrected": bool(opts.get("degree_corrected", False)), "n_positions": k,
            "criterion": settings.criterion, "elbo": float(model.elbo_), "icl": float(model.icl_),
            "transition": np.round(model.transition_, 4).tolist(), "initial": np.round(model.initial_, 4).tolist(),
-           "rates": np.asarray(model.rates_, dtype=float).round(8).tolist()}  # drawn from by the confidence map
+           "rates": np.asarray(model.rates_, dtype=float).round(8).tolist(),  # drawn from by the confidence map
+           # the Dirichlet prior on the transition rows as it ran (strength, and centre: the pooled move rate)
+           "transition_prior": float(model.prior_strength_),
+           "move_rate": None if np.isnan(model.move_rate_) else round(float(model.move_rate_), 6)}
     if table is not None:
         # The per-K table in the shape every --positions auto table has (tracker.views.auto_table).
         ran["auto"] = [{"k": int(row["n_positions"]), "icl": float(row["icl"]), "elbo": float(row["elbo"]),
