@@ -9,7 +9,16 @@ database, no pandas), so worker processes start quickly.
 
 from __future__ import annotations
 
-__all__ = ["structure_tests", "core_periphery_check"]
+__all__ = ["structure_tests", "core_periphery_check", "structure_workers", "POOL_TIES"]
+
+#: Below this many ties in all tasks together the structure tests run in this
+#: process: their work (about a second of CPU at 5,000 actors x 20 periods)
+#: is less than starting worker processes, which import numpy, scipy and
+#: roletrail each (2-4 s on a busy 2-core machine; a report at 300 actors x 5
+#: periods took 15.4 s with two workers against 7.6 s with one).  At 50,000
+#: actors x 20 periods (2.5 million ties) the core-periphery fits take about
+#: a second per period and two workers pay.
+POOL_TIES = 1_000_000
 
 
 def structure_tests(period: str, images: list, draws: int, seed: int) -> list:
@@ -43,6 +52,21 @@ def structure_tests(period: str, images: list, draws: int, seed: int) -> list:
                                                                         continuous_coreness)
             out.append((period, rel, best, checks))
     return out
+
+
+def structure_workers(tasks: list) -> int | None:
+    """Workers for :func:`structure_tests` over ``tasks``: 1 below :data:`POOL_TIES` ties in all, else None (the setting in force).
+
+    Results do not depend on the number of workers, only the time does.
+
+    >>> structure_workers([("2001", [("r", None, None)], 99, 0)])
+    1
+    """
+    ties = 0
+    for task in tasks:
+        for _, _, matrix in task[1]:
+            ties += int(getattr(matrix, "nnz", 0) or 0) if matrix is not None else 0
+    return 1 if ties < POOL_TIES else None
 
 
 def core_periphery_check(matrix, seed, discrete, continuous) -> tuple[float, float]:

@@ -120,8 +120,13 @@ def _track_colour(track: int) -> str:
     return NO_TIE_COLOUR if track == 0 else TRACK_COLOURS[(track - 1) % len(TRACK_COLOURS)]
 
 
+def _distinct_tracks(tracks: Sequence[int]) -> list[int]:
+    """The distinct tracks in ascending order (a set first: one entry per membership would be slow)."""
+    return sorted({int(t) for t in set(tracks) if not _missing(t)})
+
+
 def _track_scale(tracks: Sequence[int], names: Mapping[int, str] | None) -> alt.Scale:
-    ordered = sorted({int(t) for t in tracks if not _missing(t)})
+    ordered = _distinct_tracks(tracks)
     labels = [track_label(t, names) for t in ordered]
     # Two tracks could share a display name; Vega-Lite needs one colour per label.
     seen: dict[str, str] = {}
@@ -131,7 +136,7 @@ def _track_scale(tracks: Sequence[int], names: Mapping[int, str] | None) -> alt.
 
 
 def _track_sort(tracks: Sequence[int], names: Mapping[int, str] | None) -> list[str]:
-    ordered = sorted({int(t) for t in tracks if not _missing(t)})
+    ordered = _distinct_tracks(tracks)
     return list(dict.fromkeys(track_label(t, names) for t in ordered))
 
 
@@ -313,10 +318,10 @@ def _flow_bands(
 
 
 def _who(actors: pd.Series, limit: int = 12) -> str:
-    names = [str(a) for a in actors]
-    if len(names) <= limit:
+    names = [str(a) for a in actors.iloc[:limit]]  # only those named: bands of thousands of actors
+    if len(actors) <= limit:
         return ", ".join(names)
-    return ", ".join(names[:limit]) + f" and {len(names) - limit} more"
+    return ", ".join(names) + f" and {len(actors) - limit} more"
 
 
 def matrix_chart(
@@ -1048,6 +1053,8 @@ def _data(frame: pd.DataFrame) -> dict:
 
 
 def _clean(value: object) -> object:
+    if type(value) is str:  # the most common value, and pd.isna of a string is slow
+        return value
     if isinstance(value, (bool, np.bool_)):
         return bool(value)
     if isinstance(value, (int, np.integer)):
