@@ -78,3 +78,16 @@ def test_planted_events_have_the_stated_degree(tmp_path):
     total = bench.make_events(path, 400, 3)
     assert 3 * 1000 * 0.98 <= total <= 3 * 1000
     assert sum(1 for _ in path.open()) == total + 1
+
+
+def test_peak_memory_is_the_step_s_own_not_its_parent_s(tmp_path):
+    # A child started from a parent holding about 400 MB must not report the
+    # parent's size (getrusage's ru_maxrss survives exec on Linux).
+    import subprocess
+    import sys
+
+    code = ("import numpy, subprocess, sys; big = numpy.ones(50_000_000); "
+            f"print(subprocess.run([sys.executable, {str(_PATH)!r}, '--peak'], capture_output=True, "
+            "text=True).stdout)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120).stdout
+    assert 0 < float(out.strip()) < 300
