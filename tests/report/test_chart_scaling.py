@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
+
 import pandas as pd
 from hypothesis import given
 from hypothesis import strategies as st
@@ -50,3 +52,19 @@ def test_flow_band_tooltip_names_twelve_actors_and_counts_the_rest():
 
     walk(spec)
     assert whos == {", ".join(f"a{i:02d}" for i in range(12)) + " and 8 more"}
+
+
+def test_per_actor_charts_draw_fewer_actors_when_there_are_many_periods():
+    # 200 actors over 50 periods: at most ACTOR_CELLS cells, so 6000 // 50 = 120 actors
+    # (all of them move once, so the busiest are ranked by label: a000 ... a119).
+    periods = [str(2000 + i) for i in range(50)]
+    n = 200
+    tracks = np.ones((50, n), dtype=int)
+    tracks[25:, :] = 2
+    m = pd.DataFrame({"period": np.repeat(periods, n), "actor": np.tile([f"a{i:03d}" for i in range(n)], 50),
+                      "position": 1, "track": tracks.ravel(), "isolate": False, "confidence": 1.0})
+    spec = charts.timeline_chart(m, periods).to_dict()
+    values = [row for rows in spec.get("datasets", {}).values() for row in rows]
+    assert {row["actor"] for row in values} == {f"a{i:03d}" for i in range(charts.ACTOR_CELLS // 50)}
+    assert f"{charts.ACTOR_CELLS // 50:,} of {n:,} actors" in spec["title"]
+    assert len(charts._limit_actors(m.assign(pidx=0), None)[0]["actor"].unique()) == n  # one period: all 200

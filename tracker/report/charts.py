@@ -29,6 +29,8 @@ import pandas as pd
 from tracker.errors import UsageError
 
 __all__ = [
+    "ACTOR_CELLS",
+    "ACTOR_FLOOR",
     "ACTOR_LIMIT",
     "CHARTS",
     "CHART_INPUTS",
@@ -468,7 +470,8 @@ def trajectory_chart(
     actor : optional
         The actor shown first (default: the first in sorted order).
     max_actors : int, optional
-        Most actors in the drop-down (default :data:`ACTOR_LIMIT`): above it,
+        Most actors in the drop-down (default :data:`ACTOR_LIMIT`, fewer
+        above :data:`ACTOR_CELLS` actor-periods): above it,
         those who changed track most often (see :func:`busiest_actors`), plus
         ``actor``; the title says how many of how many.  Every actor's path
         would put all memberships into the page (megabytes at thousands of
@@ -540,7 +543,7 @@ def timeline_chart(
     that start together sit together and a move shows as a change of colour
     along a row. Faded cells are memberships of low confidence; blank cells are
     periods in which the actor was absent.  Above ``max_actors`` actors
-    (default :data:`ACTOR_LIMIT`) the rows are those who changed track most
+    (default :data:`ACTOR_LIMIT`, fewer above :data:`ACTOR_CELLS` cells) the rows are those who changed track most
     often (:func:`busiest_actors`), and the title says how many of how many:
     thousands of rows are neither readable nor small.
     """
@@ -987,6 +990,15 @@ def _actor_tracks(memberships: pd.DataFrame, periods: list[str], track_names) ->
 #: Most actors drawn one by one (timeline rows, trajectory choices) in a chart.
 ACTOR_LIMIT = 300
 
+#: Most actor-period cells of a per-actor chart by default: with many periods
+#: fewer actors are drawn (at least :data:`ACTOR_FLOOR`), so the page stays a
+#: few megabytes (at 50 periods, 300 actors in the timeline and the trajectory
+#: list took 3.2 MB of a 5.8 MB report).
+ACTOR_CELLS = 6000
+
+#: Fewest actors a per-actor chart keeps by default, however many periods.
+ACTOR_FLOOR = 60
+
 
 def busiest_actors(m: pd.DataFrame, limit: int) -> list[str]:
     """The ``limit`` actors who changed track most often, then by label.
@@ -1005,7 +1017,10 @@ def busiest_actors(m: pd.DataFrame, limit: int) -> list[str]:
 
 def _limit_actors(m: pd.DataFrame, max_actors: int | None, keep: object = None) -> tuple[pd.DataFrame, str]:
     """At most ``max_actors`` actors of ``m`` (the busiest, plus ``keep``) and a title suffix."""
-    limit = ACTOR_LIMIT if max_actors is None else int(max_actors)
+    if max_actors is None:
+        limit = min(ACTOR_LIMIT, max(ACTOR_FLOOR, ACTOR_CELLS // max(1, m["pidx"].nunique())))
+    else:
+        limit = int(max_actors)
     total = m["actor"].nunique()
     if total <= limit:
         return m, ""
