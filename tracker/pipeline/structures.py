@@ -55,8 +55,9 @@ def structure_tests(period: str, images: list, draws: int, seed: int) -> list:
 
 
 def structure_workers(tasks: list) -> int | None:
-    """Workers for :func:`structure_tests` over ``tasks``: 1 below :data:`POOL_TIES` ties in all, else None (the setting in force).
+    """Workers for :func:`structure_tests` over ``tasks``: 1 below :data:`POOL_TIES` ties in all.
 
+    Else None: the setting in force (``--workers``, all cores by default).
     Results do not depend on the number of workers, only the time does.
 
     >>> structure_workers([("2001", [("r", None, None)], 99, 0)])

@@ -543,9 +543,10 @@ def timeline_chart(
     that start together sit together and a move shows as a change of colour
     along a row. Faded cells are memberships of low confidence; blank cells are
     periods in which the actor was absent.  Above ``max_actors`` actors
-    (default :data:`ACTOR_LIMIT`, fewer above :data:`ACTOR_CELLS` cells) the rows are those who changed track most
-    often (:func:`busiest_actors`), and the title says how many of how many:
-    thousands of rows are neither readable nor small.
+    (default :data:`ACTOR_LIMIT`, fewer above :data:`ACTOR_CELLS` cells) the
+    rows are those who changed track most often (:func:`busiest_actors`), and
+    the title says how many of how many: thousands of rows are neither
+    readable nor small.
     """
     periods = _periods(periods)
     if memberships is None or len(memberships) == 0:
