@@ -524,7 +524,8 @@ class Study:
     @_computing
     def structures(self, *, fit: int | None = None, draws: int = 199, seed: int | None = None,
                    raw_check: bool = True, basis: str = "ties",
-                   snapshots: Sequence[Snapshot] | None = None) -> pd.DataFrame:
+                   snapshots: Sequence[Snapshot] | None = None,
+                   fit_periods: pd.DataFrame | None = None) -> pd.DataFrame:
         """The closest ideal image per period and relation, with its fit and significance.
 
         For each period and relation of the fit, the blocks (without the
@@ -546,7 +547,8 @@ class Study:
         Everett (1999) on the raw ties (``cp_correlation``,
         ``coreness_correlation``) check the image-level answer.  Positions are
         named by their track when the fit is aligned (see :meth:`align`).
-        ``snapshots`` may hold the fitted periods' snapshots when already read.
+        ``snapshots`` may hold the fitted periods' snapshots when already read,
+        ``fit_periods`` the fit's per-period table (:meth:`Store.fit_periods`).
 
         Returns columns ``period, relation, ideal, variant, mismatches, fit,
         p_value, roles, changed, q_value, fit_q_value, significant, structure,
@@ -555,13 +557,13 @@ class Study:
         if basis not in ("ties", "image"):
             raise UsageError(f"basis must be 'ties' or 'image', not {basis!r}")
         from tracker.execution import map_tasks
-        from tracker.pipeline.structures import structure_tests
+        from tracker.pipeline.structures import structure_tests, structure_workers
         from tracker.structures.change import structures_over_time
 
         info = self.store.current_fit(fit)
         seed = info["seed"] if seed is None else seed
         blocks = self.store.blocks(info["id"])
-        fp = self.store.fit_periods(info["id"]).set_index("period")
+        fp = (self.store.fit_periods(info["id"]) if fit_periods is None else fit_periods).set_index("period")
         names = self._position_names(info["id"])
         rows, labels, extra, tasks = [], {}, {}, []
         periods = [p for p in self.periods() if p in fp.index]
@@ -585,7 +587,7 @@ class Study:
                       for rel, sub in part.groupby("relation", sort=True)]
             tasks.append((period, images, draws, seed))
         # One task per period: the ideal images' significance draws and the core-periphery restarts.
-        for found in map_tasks(structure_tests, tasks, label="testing structures"):
+        for found in map_tasks(structure_tests, tasks, label="testing structures", workers=structure_workers(tasks)):
             for period, rel, best, checks in found:
                 rows.append((period, rel, best))
                 if checks is not None:
@@ -867,7 +869,9 @@ class Study:
         info = self.store.current_fit(fit)
         fit_id = info["id"]
         self._require_alignment(fit_id)
-        periods = self._fitted_periods(fit_id)
+        # Read once (a dynamic fit keeps every actor's change probabilities there): periods, tables, structures.
+        fp = self.store.fit_periods(fit_id)
+        periods = fp["period"].tolist()
         snapshots = list(self.store.snapshots(periods))  # read once: summary and structures
         tables: dict = {"summary": _summary_table(snapshots)}
         members = self.memberships(fit_id)
@@ -890,7 +894,6 @@ class Study:
 
             tables["transitions"] = transitions(members, periods)  # as self.transitions, without a second read
         tables["blocks"] = blocks
-        fp = self.store.fit_periods(fit_id)
         diag, fitted_relations = [], self.store.relations()
         for row in fp.itertuples(index=False):
             auto = row.diagnostics.get("auto") if isinstance(row.diagnostics, dict) else None
@@ -908,7 +911,7 @@ class Study:
         tables["permutation"].insert(1, "observed", [
             (d.get("fit_test") or {}).get("observed") if isinstance(d, dict) else None for d in fp["diagnostics"]])
         tables["permutation"]["observed"] = pd.to_numeric(tables["permutation"]["observed"], errors="coerce")
-        structures = self.structures(fit=fit_id, draws=structure_draws, snapshots=snapshots)
+        structures = self.structures(fit=fit_id, draws=structure_draws, snapshots=snapshots, fit_periods=fp)
         tables["structures"] = structures.drop(columns=["parts"], errors="ignore")
         tables["structure_sentences"] = self.structure_sentences(structures)
         params = info["params"]

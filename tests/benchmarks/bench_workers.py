@@ -1,4 +1,4 @@
-"""Speed-up of 2 workers against 1: a default fit, a fit of each period alone, structure tests and an alignment.
+"""Speed-up of 2 workers against 1: import, fits, structure tests, an alignment and the report.
 
 One run measures both settings on copies of the same imported study, so the
 ratio holds even when the machine's speed drifts::
@@ -10,7 +10,11 @@ Steps (each a new copy of the imported study, same seed, same results):
 - ``fit`` with its defaults (smoothing across periods, 99 permutation draws);
 - ``fit --smooth off`` (one task per period, permutation draws inside);
 - ``structures`` (one task per period: ideal-image draws and core-periphery restarts);
-- ``align --draws D`` after the smoothed fit (bootstrap refits for move confidence).
+- ``align --draws D`` after the smoothed fit (bootstrap refits for move confidence);
+- ``import`` (timed apart, into an empty study) and ``report`` (of the aligned fit).
+
+``bench_scaling.py --workers 1,2`` gives the same comparison step by step
+over a grid of sizes, each step in a process of its own.
 
 The pool of worker processes is started (and timed) before the steps, as in a
 command that runs several batches.  The results of both runs are compared.
@@ -34,17 +38,22 @@ from tracker.api import Study  # noqa: E402
 from tracker.execution import map_tasks  # noqa: E402
 
 
-def run(db: Path, workers: int, draws: int) -> tuple[dict, dict]:
+def run(db: Path, csv: Path, workers: int, draws: int) -> tuple[dict, dict]:
     times, results = {}, {}
     start = time.perf_counter()
     map_tasks(abs, [(-1,)] * workers, workers=workers)
     times["start workers"] = time.perf_counter() - start
+    with Study(db.with_name(f"import{workers}.db"), workers=workers) as fresh:
+        start = time.perf_counter()
+        fresh.import_events(csv, source="source", target="target", date="year")
+        times["import"] = time.perf_counter() - start
     with Study(db, workers=workers) as study:
         for label, call in (
             ("fit --smooth off", lambda: study.fit(positions=4, smoothing=0)),
             ("structures", lambda: study.structures(draws=199)),
             ("fit (defaults)", lambda: study.fit(positions=4)),
             (f"align --draws {draws}", lambda: study.align(draws=draws)),
+            ("report", lambda: study.report(db.with_suffix(".html"))),
         ):
             start = time.perf_counter()
             out = call()
@@ -70,7 +79,7 @@ def main() -> None:
         for workers in (1, 2):
             db = Path(tmp) / f"w{workers}.db"
             shutil.copy(base, db)
-            timings[workers], outputs[workers] = run(db, workers, draws)
+            timings[workers], outputs[workers] = run(db, csv, workers, draws)
     print(f"{'step':<24} {'1 worker':>10} {'2 workers':>10} {'speed-up':>9}")
     for step in timings[1]:
         one, two = timings[1][step], timings[2][step]

@@ -29,6 +29,8 @@ import pandas as pd
 from tracker.errors import UsageError
 
 __all__ = [
+    "ACTOR_CELLS",
+    "ACTOR_FLOOR",
     "ACTOR_LIMIT",
     "CHARTS",
     "CHART_INPUTS",
@@ -120,8 +122,13 @@ def _track_colour(track: int) -> str:
     return NO_TIE_COLOUR if track == 0 else TRACK_COLOURS[(track - 1) % len(TRACK_COLOURS)]
 
 
+def _distinct_tracks(tracks: Sequence[int]) -> list[int]:
+    """The distinct tracks in ascending order (a set first: one entry per membership would be slow)."""
+    return sorted({int(t) for t in set(tracks) if not _missing(t)})
+
+
 def _track_scale(tracks: Sequence[int], names: Mapping[int, str] | None) -> alt.Scale:
-    ordered = sorted({int(t) for t in tracks if not _missing(t)})
+    ordered = _distinct_tracks(tracks)
     labels = [track_label(t, names) for t in ordered]
     # Two tracks could share a display name; Vega-Lite needs one colour per label.
     seen: dict[str, str] = {}
@@ -131,7 +138,7 @@ def _track_scale(tracks: Sequence[int], names: Mapping[int, str] | None) -> alt.
 
 
 def _track_sort(tracks: Sequence[int], names: Mapping[int, str] | None) -> list[str]:
-    ordered = sorted({int(t) for t in tracks if not _missing(t)})
+    ordered = _distinct_tracks(tracks)
     return list(dict.fromkeys(track_label(t, names) for t in ordered))
 
 
@@ -313,10 +320,10 @@ def _flow_bands(
 
 
 def _who(actors: pd.Series, limit: int = 12) -> str:
-    names = [str(a) for a in actors]
-    if len(names) <= limit:
+    names = [str(a) for a in actors.iloc[:limit]]  # only those named: bands of thousands of actors
+    if len(actors) <= limit:
         return ", ".join(names)
-    return ", ".join(names[:limit]) + f" and {len(names) - limit} more"
+    return ", ".join(names) + f" and {len(actors) - limit} more"
 
 
 def matrix_chart(
@@ -463,7 +470,8 @@ def trajectory_chart(
     actor : optional
         The actor shown first (default: the first in sorted order).
     max_actors : int, optional
-        Most actors in the drop-down (default :data:`ACTOR_LIMIT`): above it,
+        Most actors in the drop-down (default :data:`ACTOR_LIMIT`, fewer
+        above :data:`ACTOR_CELLS` actor-periods): above it,
         those who changed track most often (see :func:`busiest_actors`), plus
         ``actor``; the title says how many of how many.  Every actor's path
         would put all memberships into the page (megabytes at thousands of
@@ -535,9 +543,10 @@ def timeline_chart(
     that start together sit together and a move shows as a change of colour
     along a row. Faded cells are memberships of low confidence; blank cells are
     periods in which the actor was absent.  Above ``max_actors`` actors
-    (default :data:`ACTOR_LIMIT`) the rows are those who changed track most
-    often (:func:`busiest_actors`), and the title says how many of how many:
-    thousands of rows are neither readable nor small.
+    (default :data:`ACTOR_LIMIT`, fewer above :data:`ACTOR_CELLS` cells) the
+    rows are those who changed track most often (:func:`busiest_actors`), and
+    the title says how many of how many: thousands of rows are neither
+    readable nor small.
     """
     periods = _periods(periods)
     if memberships is None or len(memberships) == 0:
@@ -986,6 +995,15 @@ def _actor_tracks(memberships: pd.DataFrame, periods: list[str], track_names) ->
 #: Most actors drawn one by one (timeline rows, trajectory choices) in a chart.
 ACTOR_LIMIT = 300
 
+#: Most actor-period cells of a per-actor chart by default: with many periods
+#: fewer actors are drawn (at least :data:`ACTOR_FLOOR`), so the page stays a
+#: few megabytes (at 50 periods, 300 actors in the timeline and the trajectory
+#: list took 3.2 MB of a 5.8 MB report).
+ACTOR_CELLS = 6000
+
+#: Fewest actors a per-actor chart keeps by default, however many periods.
+ACTOR_FLOOR = 60
+
 
 def busiest_actors(m: pd.DataFrame, limit: int) -> list[str]:
     """The ``limit`` actors who changed track most often, then by label.
@@ -1004,7 +1022,10 @@ def busiest_actors(m: pd.DataFrame, limit: int) -> list[str]:
 
 def _limit_actors(m: pd.DataFrame, max_actors: int | None, keep: object = None) -> tuple[pd.DataFrame, str]:
     """At most ``max_actors`` actors of ``m`` (the busiest, plus ``keep``) and a title suffix."""
-    limit = ACTOR_LIMIT if max_actors is None else int(max_actors)
+    if max_actors is None:
+        limit = min(ACTOR_LIMIT, max(ACTOR_FLOOR, ACTOR_CELLS // max(1, m["pidx"].nunique())))
+    else:
+        limit = int(max_actors)
     total = m["actor"].nunique()
     if total <= limit:
         return m, ""
@@ -1052,6 +1073,8 @@ def _data(frame: pd.DataFrame) -> dict:
 
 
 def _clean(value: object) -> object:
+    if type(value) is str:  # the most common value, and pd.isna of a string is slow
+        return value
     if isinstance(value, (bool, np.bool_)):
         return bool(value)
     if isinstance(value, (int, np.integer)):
