@@ -727,6 +727,11 @@ def moves(ctx, fmt, output, fit_id, min_confidence):
     if fmt == "table" and output is None:
         click.echo("confidence: probability that the move is real, learned on studies simulated from the fit; "
                    "roletrail calibration checks it.")
+        method = (_study(ctx).fit_info(fit_id).get("params") or {}).get("method", "dynamic")
+        if method != "dynamic":
+            click.echo(f"caution: {method} is a descriptive method; its move confidence is learned from its own "
+                       "moves and was far from calibrated on some planted benchmarks (README: Read results with "
+                       "care); the dynamic model's is calibrated.")
 
 
 @main.command()

@@ -99,3 +99,17 @@ def test_calibration_check_runs_for_a_descriptive_method(tmp_path):
     assert stored["studies"] == 2 and sum(b["moves"] for b in stored["bins"]) == stored["moves"]
     if stored["moves"]:
         assert 0 <= stored["ece_floor"] <= stored["ece_floor_95"] <= 1
+
+
+def test_moves_cautions_about_a_descriptive_methods_confidence_only(tmp_path):
+    # The caution states a measured fact (tests/benchmarks/README.md: descriptive methods'
+    # confidence far from calibrated on some planted settings); it must follow the fit's method.
+    db = _planted_study(tmp_path, density_in=0.2, movers=6, seed=4)
+    _run(db, "fit", "--positions", "3", "--draws", "0")
+    _run(db, "align", "--draws", "0")
+    assert "caution:" not in _run(db, "moves")
+    _run(db, "fit", "--method", "structural", "--positions", "3", "--draws", "0", "--smooth", "off")
+    _run(db, "align", "--draws", "0")
+    out = _run(db, "moves")
+    assert "caution: structural is a descriptive method" in out
+    assert "caution:" not in _run(db, "moves", "--format", "csv")  # machine output stays clean
