@@ -10,6 +10,7 @@ import pandas as pd
 from hypothesis import given
 from hypothesis import strategies as st
 
+from tests.report.test_charts import _values
 from tracker.report import charts
 
 
@@ -38,19 +39,7 @@ def test_flow_band_tooltip_names_twelve_actors_and_counts_the_rest():
                             "actor": [f"a{i:02d}" for i in range(20)] * 2,
                             "track": [1] * 20 + [2] * 20})
     spec = charts.flow_chart(members, periods).to_dict()
-    whos = set()
-
-    def walk(node):
-        if isinstance(node, dict):
-            if isinstance(node.get("who"), str):
-                whos.add(node["who"])
-            for value in node.values():
-                walk(value)
-        elif isinstance(node, list):
-            for value in node:
-                walk(value)
-
-    walk(spec)
+    whos = {row["who"] for row in _values(spec) if isinstance(row.get("who"), str)}
     assert whos == {", ".join(f"a{i:02d}" for i in range(12)) + " and 8 more"}
 
 
