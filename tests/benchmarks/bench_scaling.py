@@ -2,7 +2,8 @@
 
 For every size (actors x periods) it generates planted events (four positions,
 mean degree about 5 per period: 2.5 events per actor and period, between
-positions with probability 0.4, inside with 0.6), then runs each step in a
+positions with probability 0.4, inside with 0.6; 1% of the actors move to
+another position before each period after the first), then runs each step in a
 process of its own and records its wall time and peak resident memory:
 
     import     Study.import_events of the CSV
@@ -53,20 +54,30 @@ import numpy as np
 
 ROOT = Path(__file__).resolve().parents[2]
 STEPS = ("import", "fit-off", "align-off", "report", "fit", "align")
+MOVE_RATE = 0.01  # share of actors planted as moving before each period after the first
 NEEDS = {"fit-off": "import", "align-off": "fit-off", "report": "align-off", "fit": "import", "align": "fit"}
 
 
-def make_events(path: Path, n: int, periods: int, *, degree: float = 5.0, positions: int = 4, seed: int = 0) -> int:
-    """Planted events: ``degree * n / 2`` per period, 60% inside positions (vectorised; returns the count)."""
+def make_events(path: Path, n: int, periods: int, *, degree: float = 5.0, positions: int = 4, seed: int = 0,
+                move_rate: float = MOVE_RATE) -> int:
+    """Planted events: ``degree * n / 2`` per period, 60% inside positions (vectorised; returns the count).
+
+    Before every period after the first, a share ``move_rate`` of the actors
+    moves to another position drawn uniformly, so ``align`` has planted moves
+    to find and its calibration has moves to learn from.
+    """
     import pandas as pd
 
     rng = np.random.default_rng(seed)
     truth = rng.integers(0, positions, n)
-    members = [np.flatnonzero(truth == k) for k in range(positions)]
     total = 0
     with open(path, "w") as handle:
         handle.write("source,target,year\n")
-        for year in range(2000, 2000 + periods):
+        for t, year in enumerate(range(2000, 2000 + periods)):
+            if t and move_rate > 0:
+                movers = rng.random(n) < move_rate
+                truth[movers] = (truth[movers] + rng.integers(1, positions, int(movers.sum()))) % positions
+            members = [np.flatnonzero(truth == k) for k in range(positions)]
             k = int(degree * n / 2)
             src = rng.integers(0, n, k)
             inside = rng.random(k) < 0.6
