@@ -70,6 +70,7 @@ def make_events(path: Path, n: int, periods: int, *, degree: float = 5.0, positi
 
     rng = np.random.default_rng(seed)
     truth = rng.integers(0, positions, n)
+    history = []
     total = 0
     with open(path, "w") as handle:
         handle.write("source,target,year\n")
@@ -77,6 +78,7 @@ def make_events(path: Path, n: int, periods: int, *, degree: float = 5.0, positi
             if t and move_rate > 0:
                 movers = rng.random(n) < move_rate
                 truth[movers] = (truth[movers] + rng.integers(1, positions, int(movers.sum()))) % positions
+            history.append(truth.copy())
             members = [np.flatnonzero(truth == k) for k in range(positions)]
             k = int(degree * n / 2)
             src = rng.integers(0, n, k)
@@ -92,7 +94,39 @@ def make_events(path: Path, n: int, periods: int, *, degree: float = 5.0, positi
             frame["year"] = year
             frame.to_csv(handle, header=False, index=False)
             total += int(keep.sum())
+    np.save(truth_path(path), np.asarray(history, dtype=np.int8))
     return total
+
+
+def truth_path(csv: Path) -> Path:
+    """Where :func:`make_events` keeps the planted positions (periods x actors) beside the events."""
+    return csv.with_name(csv.stem + "-truth.npy")
+
+
+def move_recovery(moves, truth: np.ndarray, first_year: int = 2000) -> dict:
+    """Reported moves against the planted ones: precision, recall (exact period) and the >= 0.8 moves.
+
+    A planted move is an actor whose planted position differs from the
+    period before; a reported move (``actor``, ``to_period``, ``confidence``
+    columns of ``Study.align``'s moves) is real when the same actor has a
+    planted move into the same period.  Moves between periods that are not
+    consecutive (an actor without ties in between) count as real when any
+    planted move falls in the gap.
+    """
+    changed = np.flatnonzero((truth[1:] != truth[:-1]).ravel())
+    planted = {(int(i % truth.shape[1]), first_year + 1 + int(i // truth.shape[1])) for i in changed}
+    actors = moves["actor"].str.slice(len("actor ")).astype(int).to_numpy()
+    start = moves["from_period"].astype(int).to_numpy()
+    end = moves["to_period"].astype(int).to_numpy()
+    real = np.array([any((a, y) in planted for y in range(s + 1, e + 1)) for a, s, e in zip(actors, start, end)],
+                    dtype=bool)
+    found = {(a, y) for a, s, e in zip(actors, start, end) for y in range(s + 1, e + 1)} & planted
+    confidence = moves["confidence"].to_numpy(dtype=float)
+    sure = confidence >= 0.8
+    return {"planted_moves": len(planted), "precision": float(real.mean()) if real.size else None,
+            "recall": len(found) / len(planted) if planted else None,
+            "mean_confidence": float(np.nanmean(confidence)) if confidence.size else None,
+            "sure": int(sure.sum()), "sure_real": float(real[sure].mean()) if sure.any() else None}
 
 
 def baseline() -> float:
@@ -130,7 +164,10 @@ def run_step(step: str, db: Path, csv: Path, report: Path, workers: int | None =
         elif step in ("align-off", "align"):
             draws = os.environ.get("BENCH_ALIGN_DRAWS")
             kwargs = {} if draws is None else {"draws": int(draws)}
-            out["moves"] = len(study.align(**kwargs)["moves"])
+            moves = study.align(**kwargs)["moves"]
+            out["moves"] = len(moves)
+            if truth_path(csv).exists():
+                out.update(move_recovery(moves, np.load(truth_path(csv))))
         elif step == "report":
             study.report(report)
             out["report_mb"] = report.stat().st_size / 2**20
@@ -240,11 +277,19 @@ def _line(row: dict) -> str:
     if row.get("status") != "ok":
         return f"{row['actors']:>6} x {row['periods']:>2}  {row['step']:<9}  {row['status']}"
     extra = f"  report {row['report_mb']:.1f} MB" if "report_mb" in row else ""
+    if row.get("planted_moves"):
+        extra += (f"  {row['moves']} moves of {row['planted_moves']} planted: precision {_fmt(row['precision'])}, "
+                  f"recall {_fmt(row['recall'])}, mean confidence {_fmt(row['mean_confidence'])}, "
+                  f">= 0.8: {row['sure']} ({_fmt(row['sure_real'])} real)")
     gain = speedup(row)
     if gain is not None:
         extra += f"  {row['workers']} vs 1 worker: {gain:.2f}x"
     return (f"{row['actors']:>6} x {row['periods']:>2}  {row['step']:<9}  {row['seconds']:8.1f} s"
             f"  ({row['ratio']:7.1f} x baseline)  peak {row['peak_mb']:7.0f} MB{extra}")
+
+
+def _fmt(value) -> str:
+    return "-" if value is None else f"{value:.3f}"
 
 
 def exponents(rows: list[dict]) -> list[str]:
@@ -308,6 +353,10 @@ def table(rows: list[dict]) -> str:
                 gain = speedup(r)
                 if gain is not None:
                     extra += f", {r['workers']} vs 1 worker {gain:.2f}x"
+                if r.get("planted_moves"):
+                    extra += (f", {r['moves']:,} moves for {r['planted_moves']:,} planted (precision "
+                              f"{_fmt(r['precision'])}, recall {_fmt(r['recall'])}; {r['sure']:,} at >= 0.8, "
+                              f"{_fmt(r['sure_real'])} real)")
                 ratio = f"{r['ratio']:.1f}" if r["ratio"] < 10 else f"{r['ratio']:.0f}"
                 cells.append(f"{r['seconds']:.1f} s = {ratio}x, {r['peak_mb']:.0f} MB{extra}")
         first = next(r for r in rows if (r["actors"], r["periods"]) == (n, t))

@@ -91,3 +91,29 @@ def test_peak_memory_is_the_step_s_own_not_its_parent_s(tmp_path):
             "text=True).stdout)")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120).stdout
     assert 0 < float(out.strip()) < 300
+
+
+def test_move_recovery_counts_planted_moves_by_definition():
+    import pandas as pd
+
+    # Planted: actor 0 moves into 2001, actor 2 into 2002 (brute force of the definition:
+    # a move is a change of planted position from the period before).
+    truth = np.array([[0, 1, 2], [1, 1, 2], [1, 1, 0]])
+    moves = pd.DataFrame({"actor": ["actor 0", "actor 1", "actor 2"], "from_period": ["2000", "2000", "2000"],
+                          "to_period": ["2001", "2001", "2002"], "confidence": [0.9, 0.3, 0.85]})
+    got = bench.move_recovery(moves, truth)
+    # actor 2's move spans 2000 -> 2002 (no ties in 2001): the planted 2002 move lies in the gap
+    assert got["planted_moves"] == 2
+    assert got["precision"] == pytest.approx(2 / 3)
+    assert got["recall"] == pytest.approx(1.0)
+    assert got["sure"] == 2 and got["sure_real"] == pytest.approx(1.0)
+    assert got["mean_confidence"] == pytest.approx((0.9 + 0.3 + 0.85) / 3)
+
+
+def test_make_events_plants_the_stated_share_of_moves(tmp_path):
+    csv = tmp_path / "events.csv"
+    bench.make_events(csv, 2000, 6, seed=3)
+    truth = np.load(bench.truth_path(csv))
+    assert truth.shape == (6, 2000)
+    share = (truth[1:] != truth[:-1]).mean()
+    assert abs(share - bench.MOVE_RATE) < 0.004  # 10,000 Bernoulli(0.01) draws: sd 0.001
