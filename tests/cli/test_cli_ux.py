@@ -116,6 +116,7 @@ def test_every_option_with_every_method_is_a_result_or_a_usage_error(planted, me
     ("structural", ["--positions", "10"], "--positions"),
     ("structural", ["--alpha", "0.3"], "--alpha"),
     ("regular", ["--smooth", "2"], "--smooth"),
+    ("dynamic", ["--smooth", "off"], "--smooth"),
     ("sbm", ["--restarts", "0"], "--restarts"),
 ])
 def test_refusals_name_the_option_and_leave_the_study_unchanged(planted, method, args, flag):
