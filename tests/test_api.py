@@ -92,3 +92,19 @@ def test_dynamic_fit_refuses_a_subset_of_periods_and_records_no_smoothing(tmp_pa
         assert study.fits().empty  # the store is unchanged
         study.fit(positions=2, draws=0)
         assert study.fit_info()["params"]["smoothing"] == 0.0
+
+
+def test_dynamic_fit_refuses_any_smoothing_given_and_keeps_auto(tmp_path):
+    # The product rule: what is asked for runs or is refused.  The dynamic model has no change
+    # penalty, so smoothing=0 ("off") would only make the fit look as if periods were fitted alone.
+    _events(tmp_path / "e.csv")
+    with Study(tmp_path / "s.db") as study:
+        study.import_events(tmp_path / "e.csv", source="a", target="b", date="d", undirected=True)
+        for smoothing in (0, 0.0, "off", "none", "no", 1.5):
+            with pytest.raises(UsageError, match="--smooth does not apply to the dynamic model"):
+                study.fit(positions=2, draws=0, smoothing=smoothing)
+        with pytest.warns(FutureWarning), pytest.raises(UsageError, match="does not apply to the dynamic model"):
+            study.fit(method="sbm", positions=2, draws=0, options={"joint": True}, smoothing=0)
+        assert study.fits().empty  # the store is unchanged
+        study.fit(positions=2, draws=0, smoothing="auto")
+        assert study.fit_info()["method"] == "dynamic" and len(study.fits()) == 1

@@ -393,16 +393,19 @@ class Study:
         ``smoothing`` (default ``"auto"``) fits the periods together, paying a
         penalty for each change of position between consecutive periods
         (evolutionary clustering; see :attr:`FitSettings.smoothing` for the
-        default and why); ``0`` fits each period alone.  When only later
+        default and why); ``0`` (or ``"off"``) fits each period alone.  The
+        dynamic model has no penalty: any ``smoothing`` but ``"auto"`` is
+        refused with it.  When only later
         periods are fitted, the stored earlier periods of the same fit are
         kept as they are and the new ones continue from them.
         """
         from tracker import __version__
         from tracker.blockmodel.fitting import FitSettings
-        from tracker.blockmodel.options import check_request
+        from tracker.blockmodel.options import check_request, smoothing_value
         from tracker.pipeline.fitting import deprecated_joint, run_fit
 
         k_range_given = k_min is not None or k_max is not None
+        smoothing = smoothing_value(smoothing)
         smoothing_given = smoothing not in (None, "auto")
         smoothing = "auto" if smoothing is None else smoothing
 
@@ -916,12 +919,14 @@ class Study:
         tables["structure_sentences"] = self.structure_sentences(structures)
         params = info["params"]
         relations = self.store.relations()
+        from tracker.views import smoothing_label
+
         meta = {
             "study": self.path.name if self.path else "study",
             "method": params["method"], "positions": params["positions"], "criterion": params["criterion"],
             "alpha": params.get("alpha"), "cut": params.get("cut"), "seed": params["seed"],
             "fit-test draws": params.get("draws"), "fit-test null model": params.get("null_model"),
-            "smoothing": params.get("smoothing"),
+            "smoothing": smoothing_label(params),
             "options": ", ".join(f"{k}={v}" for k, v in (params.get("options") or {}).items()) or None,
             "fit": fit_id, "fitted with version": info["version"], "version": __version__,
             "created": datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),

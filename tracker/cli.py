@@ -475,7 +475,8 @@ def _split(values) -> list[str] | None:
               help="How strongly to resist changes of position from one period to the next, for the descriptive "
                    "methods (change penalty, added to the method's own objective, in units of its per-actor objective): auto "
                    "(0.5 for structural, concor and optimize; none for the others), off (fit each period alone) or a "
-                   "number; higher means fewer, surer moves [default: auto]. The dynamic model links periods itself.")
+                   "number; higher means fewer, surer moves [default: auto]. The dynamic model (the default method) takes no "
+                   "--smooth, not even off: it links periods itself.")
 @computing
 @click.pass_context
 def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations, draws, null_model, k_range, linkage,
@@ -508,14 +509,6 @@ def fit(ctx, method, positions, criterion, alpha, cut, seed, periods, relations,
 
         method, options, warning = deprecated_joint(method, {**options, "joint": True})
         click.echo(warning, err=True)
-    if smoothing not in (None, "auto"):
-        if smoothing in ("off", "none", "no"):
-            smoothing = 0.0
-        else:
-            try:
-                smoothing = float(smoothing)
-            except ValueError:
-                raise UsageError(f"--smooth takes auto, off or a number, not {smoothing!r}") from None
     result = _study(ctx).fit(
         method=method, positions=positions, criterion=criterion, alpha=alpha, cut=cut, seed=seed,
         periods=_split(periods), relations=_split(relations), draws=draws, k_min=k_min, k_max=k_max,

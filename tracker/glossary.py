@@ -199,8 +199,9 @@ _ENTRIES = (
         "every later year. For the descriptive methods (structural, CONCOR, optimize) the penalty is added to "
         "the method's own objective; --smooth sets it: auto (the default, 0.5), off (each period alone) or a "
         "number, in units of the method's own per-actor objective, so that 1 means one change costs as much "
-        "as an average actor's misfit. The dynamic model (the default method) needs no penalty: its Markov "
-        "chain gives every actor a probability of keeping its position from one period to the next.",
+        "as an average actor's misfit. The dynamic model (the default method) needs no penalty and takes no "
+        "--smooth, not even off: its Markov chain gives every actor a probability of keeping its position from "
+        "one period to the next. To fit each period alone, choose a descriptive method with --smooth off.",
         "descriptive methods, period by period in time order: choose z_t minimising objective_t(z_t) + "
         "c · s_t · #{actors i with z_t(i) ≠ z_t−1(i)}, where s_t is the method's per-actor objective of the "
         "unsmoothed fit and c the relative penalty (auto: c = 0.5); c = 0 gives exactly the unsmoothed fit.",

@@ -98,6 +98,7 @@ def refit_from(study, records: list[FitRecord], *, actor_map: dict | None = None
     ``names`` carried, ``lost`` names, ``error`` (why it could not be refitted).
     """
     from tracker.longitudinal.carry import carry_names
+    from tracker.pipeline.fitting import is_dynamic
 
     new_periods = study.store.periods()
     old_periods = new_periods if old_periods is None else old_periods
@@ -114,7 +115,7 @@ def refit_from(study, records: list[FitRecord], *, actor_map: dict | None = None
                 cut=p.get("cut"), seed=p["seed"], periods=periods or None, relations=p.get("relations"),
                 draws=p.get("draws", 99), k_min=p.get("k_min") if auto else None,
                 k_max=p.get("k_max") if auto else None, options=options,
-                smoothing=None if p["method"] == "regular" or options.get("joint") else p.get("smoothing", "auto"),
+                smoothing=None if p["method"] == "regular" or is_dynamic(p) else p.get("smoothing", "auto"),
             )
             entry["new"] = result["fit"]
             if record.alignment:

@@ -268,6 +268,8 @@ def record(study, path: str | Path, *, report: str | None = None, title: str | N
     not next to the analysis file, an import option this roletrail cannot
     replay).
     """
+    from tracker.pipeline.fitting import is_dynamic
+
     path = Path(path)
     notes: list[str] = []
     analysis = Analysis(path=path, title=title, results=path.with_suffix("").name + RESULTS_SUFFIX)
@@ -294,6 +296,8 @@ def record(study, path: str | Path, *, report: str | None = None, title: str | N
     for row in fits.itertuples(index=False):
         fit_id = int(row.fit)
         settings = {k: v for k, v in json.loads(row.params).items() if v is not None and v != {}}
+        if is_dynamic(settings):
+            settings.pop("smoothing", None)  # stored as 0 (no penalty ran); the dynamic model refuses --smooth
         fitted = study.store.fit_periods(fit_id)["period"].tolist()
         analysis.fits.append({"id": fit_id, "settings": settings,
                               "periods": None if fitted == all_periods else fitted})
@@ -394,7 +398,7 @@ def replay(analysis: Analysis, study, *, data_dir: str | Path | None = None, rep
             options["periods"] = entry["periods"]
         result = _call(study.fit, options, name, f"[[fit]] {i}")
         fit_map[entry["id"]] = int(result["fit"])
-        say(f"fit {entry['id']}: {options.get('method', 'structural')}, seed {options.get('seed', 0)}, "
+        say(f"fit {entry['id']}: {study.fit_info(int(result['fit']))['method']}, seed {options.get('seed', 0)}, "
             f"{len(result['periods'])} periods")
     for i, entry in enumerate(analysis.aligns, 1):
         result = _call(study.align, entry["settings"], name, f"[[align]] {i}", fit=fit_map[entry["fit"]])

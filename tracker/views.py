@@ -73,7 +73,7 @@ def fits_table(frame: pd.DataFrame) -> pd.DataFrame:
     params = [p if isinstance(p, dict) else json.loads(p) for p in out["params"]]
     out["params"] = params
     out["positions"] = [str(p.get("positions")) for p in params]
-    out["smoothing"] = [_smoothing(p) for p in params]
+    out["smoothing"] = [smoothing_label(p) for p in params]
     out["relations"] = [", ".join(p.get("relations") or []) or "all" for p in params]
     out["draws"] = [int(p.get("draws", 0)) for p in params]
     out["k_range"] = [f"{p.get('k_min')}-{p.get('k_max')}" if p.get("positions") == "auto" else "" for p in params]
@@ -85,10 +85,12 @@ def fits_table(frame: pd.DataFrame) -> pd.DataFrame:
     return out[[c for c in first if c in out.columns] + rest]
 
 
-def _smoothing(params: dict) -> str:
-    options = params.get("options") or {}
-    if options.get("joint"):
-        return "joint model"
+def smoothing_label(params: dict) -> str:
+    """The fit's smoothing as the fits listing and the report show it: auto, off, a penalty, or none (dynamic)."""
+    from tracker.pipeline.fitting import is_dynamic
+
+    if is_dynamic(params):
+        return "none (dynamic model)"  # its chain links the periods; "off" would read as periods fitted alone
     if params.get("method") == "regular":
         return "off"
     value = params.get("smoothing", "auto")

@@ -7,10 +7,10 @@ ratio holds even when the machine's speed drifts::
 
 Steps (each a new copy of the imported study, same seed, same results):
 
-- ``fit`` with its defaults (smoothing across periods, 99 permutation draws);
-- ``fit --smooth off`` (one task per period, permutation draws inside);
+- ``fit`` with its defaults (the dynamic model, 39 fit-test draws);
+- ``fit --method structural --smooth off`` (one task per period, fit-test draws inside);
 - ``structures`` (one task per period: ideal-image draws and core-periphery restarts);
-- ``align --draws D`` after the smoothed fit (bootstrap refits for move confidence);
+- ``align --draws D`` after the default fit (simulated refits for move confidence);
 - ``import`` (timed apart, into an empty study) and ``report`` (of the aligned fit).
 
 ``bench_scaling.py --workers 1,2`` gives the same comparison step by step
@@ -49,7 +49,7 @@ def run(db: Path, csv: Path, workers: int, draws: int) -> tuple[dict, dict]:
         times["import"] = time.perf_counter() - start
     with Study(db, workers=workers) as study:
         for label, call in (
-            ("fit --smooth off", lambda: study.fit(positions=4, smoothing=0)),
+            ("fit --method structural --smooth off", lambda: study.fit(method="structural", positions=4, smoothing=0)),
             ("structures", lambda: study.structures(draws=199)),
             ("fit (defaults)", lambda: study.fit(positions=4)),
             (f"align --draws {draws}", lambda: study.align(draws=draws)),

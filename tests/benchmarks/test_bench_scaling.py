@@ -67,6 +67,7 @@ def test_speedup_and_table_cells():
     assert bench.speedup({**row, "seconds_1": None}) is None
     assert bench.speedup({k: v for k, v in row.items() if k != "seconds_1"}) is None
     text = bench.table([row, {**row, "step": "import", "status": ">600 s"}])
+    assert text.startswith("| actors x periods | events | baseline | import | fit (defaults: dynamic) |")
     assert "| 300 x 5 | 3,719 | 2.00 s |" in text
     assert "5.0 s = 2.5x, 210 MB, 2 vs 1 worker 1.80x" in text
     assert ">600 s" in text

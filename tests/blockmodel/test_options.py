@@ -80,3 +80,25 @@ def test_degenerate_requests():
     with pytest.raises(UsageError, match="--exact"):
         check_request(FitSettings(method="regular", positions=3, options={"exact": True}))
     assert check_request(FitSettings(method="regular", positions="auto", options={"exact": True})) == []
+
+
+def test_smooth_words_and_numbers():
+    # Source: the --smooth help text: auto, off (also "none", "no") or a number.
+    from tracker.blockmodel.options import smoothing_value
+
+    assert smoothing_value(None) is None and smoothing_value("auto") == "auto"
+    assert [smoothing_value(w) for w in ("off", "none", "no", "OFF", 0, "0", "1.5", 2)] == [0, 0, 0, 0, 0, 0, 1.5, 2]
+    for bad in ("soft", "nan", "inf", ""):
+        with pytest.raises(UsageError, match="--smooth takes auto, off or a number"):
+            smoothing_value(bad)
+
+
+def test_any_smoothing_given_with_the_dynamic_model_is_refused():
+    # The dynamic model has no change penalty: --smooth off would relabel the fit, not change it.
+    for value in (0.0, 1.5):
+        for settings in (FitSettings(smoothing=value), FitSettings(method="dynamic", smoothing=value)):
+            with pytest.raises(UsageError, match="--smooth does not apply to the dynamic model"):
+                check_request(settings, smoothing_given=True)
+    assert check_request(FitSettings(smoothing=0.0)) == []  # the recorded "no penalty", not given by the user
+    for method in ("sbm", "structural"):  # the fixes the refusal names
+        assert check_request(FitSettings(method=method, smoothing=0.0), smoothing_given=True) == []

@@ -30,7 +30,7 @@ def test_calibration_command_stores_reliability_bins_and_ece(tmp_path):
     # 5 equal-width bins whose move counts add up to the moves checked, and an ECE in [0, 1]
     # equal to its definition recomputed from those bins (Naeini et al. 2015).
     db = _planted_study(tmp_path, density_in=0.2, movers=6, seed=4)
-    _run(db, "fit", "--positions", "3", "--draws", "0", "--smooth", "off")
+    _run(db, "fit", "--positions", "3", "--draws", "0")
     _run(db, "align", "--draws", "1")
     out = _run(db, "calibration", "--studies", "2", "--seed", "3")
     assert "expected calibration error" in out

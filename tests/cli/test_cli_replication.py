@@ -220,6 +220,8 @@ def test_an_interactive_study_is_recorded_and_replicated(tmp_path):
     assert doc["import"][0]["period"] == "2y"  # the re-cut is part of the import
     assert {"name": "Agency #3", "actor": "agency 03"} in doc["alias"]
     assert doc["fit"][0]["seed"] == 4 and doc["align"][0]["seed"] == 4  # the alignment took the fit's seed
+    # the default (dynamic) fit takes no --smooth: its stored "no penalty" is not written as a setting to replay
+    assert doc["fit"][0]["method"] == "dynamic" and "smoothing" not in doc["fit"][0]
     out = _ok("replicate", tmp_path / "work.toml", "--into", tmp_path / "again.db")
     assert "identical" in out
     with Study(tmp_path / "again.db") as again, Study(db) as work:

@@ -21,7 +21,7 @@ def _study(tmp_path, new_db):
 
 def test_fit_test_is_stored_with_its_null_model_draws_and_q_values(tmp_path, new_db):
     db = _study(tmp_path, new_db)
-    _run(db, "fit", "--positions", "3", "--draws", "9", "--null", "degrees", "--smooth", "off")
+    _run(db, "fit", "--method", "structural", "--positions", "3", "--draws", "9", "--null", "degrees", "--smooth", "off")
     with Study(db) as study:
         fp = study.fit_periods()
     assert fp["null_model"].tolist() == ["degrees"] * 3 and fp["draws"].tolist() == [9] * 3

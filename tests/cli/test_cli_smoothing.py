@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import json
+
 from click.testing import CliRunner
 
 from tests.conftest import table_dump
@@ -45,3 +47,47 @@ def test_a_penalty_the_method_cannot_honour_is_refused_and_nothing_is_stored(tmp
     assert "cannot be honoured" in result.output
     with Study(db) as study:
         assert table_dump(study) == before
+
+
+def _fit(db, *args):
+    return CliRunner().invoke(main, ["--db", str(db), "fit", "--positions", "3", "--draws", "0", *args])
+
+
+def test_any_smooth_with_the_dynamic_model_is_refused_in_one_line_and_nothing_is_stored(tmp_path):
+    # Source: the product rule "what is asked for runs or is refused, never silently replaced":
+    # the dynamic model has no change penalty, so even --smooth off would only relabel its fit.
+    db = _study_file(tmp_path)
+    with Study(db) as study:
+        before = table_dump(study)
+    for args in (["--smooth", "off"], ["--smooth", "0"], ["--smooth", "none"], ["--smooth", "no"], ["--smooth", "2"],
+                 ["--method", "dynamic", "--smooth", "off"], ["--joint", "--method", "sbm", "--smooth", "off"]):
+        result = _fit(db, *args)
+        assert result.exit_code == 2, (args, result.output)
+        assert "Traceback" not in result.output and "internal error" not in result.output
+        lines = result.stderr.strip().splitlines()
+        if "--joint" in args:
+            assert lines[0].startswith("--joint is deprecated")  # its own line, then the refusal
+            lines = lines[1:]
+        assert len(lines) == 1, (args, result.stderr)
+        assert lines[0].startswith("roletrail: error: --smooth does not apply to the dynamic model")
+        assert "drop --smooth" in lines[0] and "--method sbm --smooth off" in lines[0]
+        with Study(db) as study:
+            assert table_dump(study) == before and study.fits().empty
+
+
+def test_the_fixes_the_refusal_names_fit_each_period_alone_and_the_listing_says_what_ran(tmp_path):
+    db = _study_file(tmp_path)
+    for method in ("sbm", "structural"):
+        result = _fit(db, "--method", method, "--smooth", "off")
+        assert result.exit_code == 0, result.output
+        with Study(db) as study:
+            assert study.fit_info()["method"] == method
+            for diag in study.fit_periods()["diagnostics"]:
+                assert diag["smoothing"] == {"method": method, "penalty": 0.0, "note": "each period fitted alone"}
+    result = _fit(db)  # the default dynamic model, no --smooth
+    assert result.exit_code == 0, result.output
+    listing = CliRunner().invoke(main, ["--db", str(db), "fits", "--format", "json"])
+    assert listing.exit_code == 0, listing.output
+    shown = {r["method"]: r["smoothing"] for r in json.loads(listing.stdout)}
+    # the dynamic fit does not read "off" (which would say its periods were fitted alone)
+    assert shown == {"sbm": "off", "structural": "off", "dynamic": "none (dynamic model)"}

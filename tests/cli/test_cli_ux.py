@@ -116,6 +116,7 @@ def test_every_option_with_every_method_is_a_result_or_a_usage_error(planted, me
     ("structural", ["--positions", "10"], "--positions"),
     ("structural", ["--alpha", "0.3"], "--alpha"),
     ("regular", ["--smooth", "2"], "--smooth"),
+    ("dynamic", ["--smooth", "off"], "--smooth"),
     ("sbm", ["--restarts", "0"], "--restarts"),
 ])
 def test_refusals_name_the_option_and_leave_the_study_unchanged(planted, method, args, flag):
@@ -131,7 +132,7 @@ def test_degenerate_positions_refused_against_the_tied_actors(planted):
     tied = len(truth)  # 18 tied actors per period in the planted data
     result = _invoke(db, "fit", "--positions", str(tied // 2 + 1), "--draws", "0")
     assert result.exit_code == 2 and f"{tied} actors with ties" in result.output
-    _run(db, "fit", "--positions", str(tied // 2), "--draws", "0", "--smooth", "off")
+    _run(db, "fit", "--positions", str(tied // 2), "--draws", "0")  # the same (default) method as the refusal
     with Study(db) as study:
         assert study.fits()["fit"].tolist() == [1]
 

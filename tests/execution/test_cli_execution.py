@@ -22,7 +22,7 @@ def imported(tmp_path, events_file):
 def test_unreachable_scheduler_is_one_line_and_changes_nothing(imported, how):
     address = "tcp://127.0.0.1:9"  # the discard port: nothing listens there
     env = {"ROLETRAIL_SCHEDULER_TIMEOUT": "1"}
-    args = ["fit", "--smooth", "off", "--draws", "0"]
+    args = ["fit", "--draws", "0"]  # the scheduler is reached before any work, whatever the method
     if how == "option":
         args += ["--scheduler", address]
     else:
@@ -56,7 +56,8 @@ def test_piped_output_has_no_bars_and_equals_quiet_output(tmp_path, events_file)
         db = tmp_path / f"s{len(outputs)}.db"
         run_cli(db, "import", str(events_file), "--source", "from_office", "--target", "to_office", "--date", "day",
                 *quiet)
-        result = run_cli(db, "fit", "--positions", "3", "--smooth", "off", "--draws", "9", "--workers", "1", *quiet)
+        result = run_cli(db, "fit", "--method", "structural", "--positions", "3", "--smooth", "off", "--draws", "9",
+                         "--workers", "1", *quiet)
         outputs.append(result.stdout)
         assert "\x1b[" not in result.output and "fitting periods" not in result.output
         assert result.stderr == ""
@@ -93,7 +94,7 @@ def test_bars_are_silent_when_quiet_or_not_a_terminal():
 def test_api_progress_callback_still_called_once_per_period(imported):
     seen = []
     with Study(imported, create=False, workers=2) as study:
-        study.fit(positions=3, smoothing=0, draws=0, progress=seen.append)
+        study.fit(method="structural", positions=3, smoothing=0, draws=0, progress=seen.append)  # one task per period
         assert sorted(seen) == sorted(study.periods())
 
 

@@ -7,13 +7,14 @@ import pytest
 from tests.execution.workflow import analyse, assert_same, stored
 
 
-@pytest.mark.parametrize("smooth", ["off", "auto"])
-def test_one_and_two_workers_store_identical_results(tmp_path, events_file, smooth):
+# The default dynamic model, each period alone (one task per period) and periods smoothed together.
+@pytest.mark.parametrize("method, smooth", [("dynamic", None), ("structural", "off"), ("structural", "auto")])
+def test_one_and_two_workers_store_identical_results(tmp_path, events_file, method, smooth):
     # The reference is the serial run (--workers 1: a plain loop in this process).
     one = tmp_path / "one.db"
     two = tmp_path / "two.db"
-    structures_one = analyse(one, events_file, "--workers", "1", smooth=smooth)
-    structures_two = analyse(two, events_file, "--workers", "2", smooth=smooth)
+    structures_one = analyse(one, events_file, "--workers", "1", method=method, smooth=smooth)
+    structures_two = analyse(two, events_file, "--workers", "2", method=method, smooth=smooth)
     first, second = stored(one), stored(two)
     assert_same(first, second)
     assert structures_one == structures_two

@@ -39,10 +39,16 @@ def run_cli(db, *args, env=None, ok=True):
     return result
 
 
-def analyse(db, events_file, *extra, smooth: str = "off"):
-    """Import, fit (with its p-value draws), structures and align with move confidence, all with ``extra`` options."""
+def analyse(db, events_file, *extra, method: str = "dynamic", smooth: str | None = None):
+    """Import, fit (with its p-value draws), structures and align with move confidence, all with ``extra`` options.
+
+    ``method`` and ``smooth`` choose the fit: the dynamic model (one model over all periods, no
+    ``--smooth``), or a descriptive method with ``--smooth off`` (each period alone, one task per
+    period) or ``auto`` (periods fitted together with a change penalty).
+    """
     run_cli(db, "import", str(events_file), "--source", "from_office", "--target", "to_office", "--date", "day")
-    run_cli(db, "fit", "--positions", "3", "--seed", "3", "--draws", "19", "--smooth", smooth, *extra)
+    fit = ["--method", method] + ([] if smooth is None else ["--smooth", smooth])
+    run_cli(db, "fit", "--positions", "3", "--seed", "3", "--draws", "19", *fit, *extra)
     structures = run_cli(db, "structures", "--draws", "19", "--format", "csv", *extra).stdout
     run_cli(db, "align", "--draws", "3", *extra)
     return structures

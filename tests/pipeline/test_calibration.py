@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+import pytest
 import scipy.sparse as sp
 
 from tests.helpers.planted_study import planted_study
@@ -45,13 +46,15 @@ def test_held_out_density_uses_the_other_periods_ties():
     assert dens[0].tolist() == [[1.0, 0.25], [0.25, 0.0]]
 
 
-def test_move_confidence_is_the_same_for_any_number_of_workers(tmp_path):
+# The default dynamic model, and a descriptive method with each period fitted alone.
+@pytest.mark.parametrize("fit", [{}, {"method": "structural", "smoothing": 0}])
+def test_move_confidence_is_the_same_for_any_number_of_workers(tmp_path, fit):
     # Source: the execution contract (tracker/execution.py): task seeds from SeedSequence,
     # results in task order, so workers never change the answer.
     study, _ = planted_study(tmp_path, n_actors=50, n_positions=3, n_periods=3, density_in=0.25,
                              density_out=0.04, movers=4, seed=7)
     with study:
-        study.fit(positions=3, draws=0, smoothing=0)
+        study.fit(positions=3, draws=0, **fit)
         with configured(workers=1):
             one = study.align(draws=2, seed=1)["moves"]["confidence"].to_numpy()
         with configured(workers=2):

@@ -49,7 +49,7 @@ def test_structures_take_the_fit_periods_already_read(tmp_path):
     pd.DataFrame(rows, columns=["a", "b", "y"]).to_csv(tmp_path / "cp.csv", index=False)
     with Study(tmp_path / "s.db", workers=1) as study:
         study.import_events(tmp_path / "cp.csv", source="a", target="b", date="y")
-        study.fit(positions=2, draws=0, smoothing=0)
+        study.fit(positions=2, draws=0)
         fp = study.store.fit_periods(study.fit_info()["id"])
         plain = study.structures(draws=19)
         given = study.structures(draws=19, fit_periods=fp)

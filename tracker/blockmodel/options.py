@@ -23,7 +23,7 @@ from typing import Any, Mapping, Sequence
 
 from tracker.errors import UsageError
 
-__all__ = ["Option", "check_options", "check_request", "method_flags", "INTERNAL_OPTIONS"]
+__all__ = ["Option", "check_options", "check_request", "method_flags", "smoothing_value", "INTERNAL_OPTIONS"]
 
 #: Options that programs (smoothing, bootstrap) hand to a method; never given by a user.
 INTERNAL_OPTIONS = ("init_labels", "prior_labels", "change_penalty")
@@ -135,6 +135,30 @@ def check_options(method: str, options: Mapping[str, Any]) -> dict:
     return out
 
 
+#: Words that ask for no smoothing penalty (``--smooth off``).
+SMOOTHING_OFF = ("off", "none", "no")
+
+
+def smoothing_value(value: Any) -> float | str | None:
+    """``--smooth`` as given (a word or a number) as a setting: ``None`` (not given), ``"auto"`` or ``c >= 0``.
+
+    ``off``, ``none`` and ``no`` are 0 (each period fitted alone); any other
+    word is refused.  Whether the chosen method takes the value is checked
+    by :func:`check_request`.
+    """
+    if value is None or value == "auto":
+        return value
+    if isinstance(value, str) and value.strip().lower() in SMOOTHING_OFF:
+        return 0.0
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        number = math.nan
+    if not math.isfinite(number):
+        raise UsageError(f"--smooth takes auto, off or a number, not {value!r}")
+    return number
+
+
 def check_request(
     settings,
     *,
@@ -157,7 +181,8 @@ def check_request(
     finds its own number); ``--alpha`` without ``--criterion density`` and
     ``--cut`` without ``--criterion max-value``; ``--linkage ward`` with
     ``--measure correlation``; ``--smooth`` with a method it
-    does not apply to; ``--degree-corrected`` with the Bernoulli model; more
+    does not apply to (any ``--smooth``, ``off`` included, with the dynamic
+    model, which has no change penalty); ``--degree-corrected`` with the Bernoulli model; more
     positions than half the tied actors of the largest period (each
     position would hold one or two actors, a "perfect fit" by construction).
     Warnings: periods where the positions asked for exceed half of that
@@ -178,14 +203,17 @@ def check_request(
         raise UsageError("--linkage ward needs Euclidean distances; use --measure euclidean or another --linkage")
     if opts.get("degree_corrected") and opts.get("model") == "bernoulli":
         raise UsageError("--degree-corrected works with the Poisson model only; drop --model bernoulli or --degree-corrected")
+    if smoothing_given and (settings.method == "dynamic" or opts.get("joint")):
+        # Not even "off": the model has no penalty to turn off, so accepting it would suggest that
+        # the periods were fitted one by one when one model over all periods ran.
+        raise UsageError("--smooth does not apply to the dynamic model (the default method): its Markov chain "
+                         "links the periods and it has no change penalty to set or turn off; drop --smooth, or "
+                         "to fit each period alone choose a descriptive method, e.g. --method sbm --smooth off "
+                         "or --method structural --smooth off")
     if smoothing_given and settings.smoothing != 0:
-        if settings.method != "dynamic":
-            from tracker.longitudinal.smoothing import smoothing_penalty
+        from tracker.longitudinal.smoothing import smoothing_penalty
 
-            smoothing_penalty(settings.method, settings.smoothing)  # refuses a penalty the method cannot honour
-        if settings.method == "dynamic":
-            raise UsageError("the dynamic model links periods through its Markov chain; drop --smooth "
-                             "(or choose a descriptive method to smooth)")
+        smoothing_penalty(settings.method, settings.smoothing)  # refuses a penalty the method cannot honour
     warnings = []
     tied = [int(t) for t in tied]
     if not auto and tied:
