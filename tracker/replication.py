@@ -374,6 +374,8 @@ def replay(analysis: Analysis, study, *, data_dir: str | Path | None = None, rep
     ``files`` are the data files already found by :func:`check_data` (checked
     here otherwise).
     """
+    from tracker.pipeline.fitting import is_dynamic
+
     files = check_data(analysis, data_dir) if files is None else files
     counts = study.store.counts()
     if counts["batches"] or len(study.fits()):
@@ -396,6 +398,10 @@ def replay(analysis: Analysis, study, *, data_dir: str | Path | None = None, rep
             options.pop("k_max", None)
         if entry["periods"] is not None:
             options["periods"] = entry["periods"]
+        if is_dynamic(options) and options.get("smoothing") in (0, "off"):
+            # Files recorded before the dynamic model refused --smooth carry the 0 that every
+            # dynamic fit stored (no penalty ran); replaying without it runs the same fit.
+            options.pop("smoothing")
         result = _call(study.fit, options, name, f"[[fit]] {i}")
         fit_map[entry["id"]] = int(result["fit"])
         say(f"fit {entry['id']}: {study.fit_info(int(result['fit']))['method']}, seed {options.get('seed', 0)}, "

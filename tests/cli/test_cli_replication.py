@@ -228,6 +228,14 @@ def test_an_interactive_study_is_recorded_and_replicated(tmp_path):
         assert again.periods() == work.periods() == ["2016-2017", "2018-2019"]
         assert again.actors()["actor"].tolist() == work.actors()["actor"].tolist()
         assert again.tracks()["name"].tolist() == work.tracks()["name"].tolist()
+    # Files recorded by earlier versions wrote the 0 that every dynamic fit stored; they still replay
+    # to the same results (the dynamic model refuses a --smooth given by the user).
+    text = (tmp_path / "work.toml").read_text(encoding="utf-8")
+    old = text.replace('method = "dynamic"', 'method = "dynamic"\nsmoothing = 0.0', 1)
+    assert old != text
+    (tmp_path / "old.toml").write_text(old, encoding="utf-8")
+    shutil.copy(tmp_path / "work.results.json", tmp_path / "old.results.json")
+    assert "identical" in _ok("replicate", tmp_path / "old.toml", "--into", tmp_path / "old.db")
 
 
 def test_replicate_against_a_tampered_study(recorded, tmp_path):
