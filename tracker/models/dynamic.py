@@ -598,15 +598,23 @@ def _choose_births(data: _Data, state: _State, params: _Params, B: int, rng, max
 
 
 def _e_step(data, state, params, current, rng):
-    """Update the actors' chains; never lets the bound fall."""
+    """Update the actors' chains; never lets the bound fall.
+
+    The chain posteriors given a state are computed once and shared by every
+    piece tried from that state (a rejected piece leaves the state, hence
+    the emissions and the posteriors, unchanged).
+    """
     pieces = [np.arange(data.n)]
+    chains = None
     for _ in range(4):
         failed = []
         for piece in pieces:
-            trial = _propose(data, state, params, piece)
+            if chains is None:
+                chains = _chains(data, state, params)
+            trial = _propose(data, state, params, piece, chains)
             value = _objective(data, trial, params)
             if value >= current:
-                state, current = trial, value
+                state, current, chains = trial, value, None
             else:
                 failed.append(piece)
         if not failed:
@@ -622,10 +630,17 @@ def _e_step(data, state, params, current, rng):
     return state, current
 
 
-def _propose(data: _Data, state: _State, params: _Params, who: np.ndarray) -> _State:
-    """New chains for actors ``who``, each the HMM posterior given everyone else."""
+def _chains(data: _Data, state: _State, params: _Params):
+    """Every actor's HMM posterior given everyone else: ``(gamma, xi, g0, entropy)`` of :func:`_forward_backward`."""
     E = _emissions(data, state, params)
-    gamma, xi, g0, entropy = _forward_backward(E, data.first, data.last, params.pi, params.P, params.active)
+    return _forward_backward(E, data.first, data.last, params.pi, params.P, params.active)
+
+
+def _propose(data: _Data, state: _State, params: _Params, who: np.ndarray, chains=None) -> _State:
+    """New chains for actors ``who``, each the HMM posterior given everyone else (``chains``, computed if None)."""
+    gamma, xi, g0, entropy = _chains(data, state, params) if chains is None else chains
+    if who.size == data.n:  # everyone (``who`` holds distinct actors): the new chains as they are
+        return _State(gamma, xi, g0, entropy, _all_stats(data, gamma))
     new_gamma = state.gamma.copy()
     new_gamma[:, who] = gamma[:, who]
     new_xi, new_g0, new_h = state.xi.copy(), state.g0.copy(), state.entropy.copy()
@@ -655,18 +670,22 @@ def _emissions(data: _Data, state: _State, params: _Params) -> np.ndarray:
         for r, layer in enumerate(data.layers[t]):
             Atau, ATtau, _, _ = state.stats[t][r]
             f1, f2 = _link(params.theta[r], data.bernoulli)
-            wo, wi = layer.w_out[:, None], layer.w_in[:, None]
             S_out = layer.w_out @ tau
             S_in = layer.w_in @ tau
-            if data.directed[r]:
-                e += Atau @ f1.T + ATtau @ f1
-                e += wo * ((S_in[None, :] - wi * tau) @ f2.T) + wi * ((S_out[None, :] - wo * tau) @ f2)
-                if layer.dc:
+            if layer.dc:
+                wo, wi = layer.w_out[:, None], layer.w_in[:, None]
+                if data.directed[r]:
+                    e += Atau @ f1.T + ATtau @ f1
+                    e += wo * ((S_in[None, :] - wi * tau) @ f2.T) + wi * ((S_out[None, :] - wo * tau) @ f2)
                     e += (wo * wi) * np.diag(f2)[None, :]
-            else:
-                e += Atau @ f1.T + wo * ((S_in[None, :] - wi * tau) @ f2.T)
-                if layer.dc:
+                else:
+                    e += Atau @ f1.T + wo * ((S_in[None, :] - wi * tau) @ f2.T)
                     e += 0.5 * (wo * wi) * np.diag(f2)[None, :]
+            elif data.directed[r]:  # unit weights: the products with w are the identity
+                e += Atau @ f1.T + ATtau @ f1
+                e += (S_in[None, :] - tau) @ f2.T + (S_out[None, :] - tau) @ f2
+            else:
+                e += Atau @ f1.T + (S_in[None, :] - tau) @ f2.T
         E[t, idx] = e
     return E
 
@@ -677,8 +696,9 @@ def _passes(E, first, last, pi, P, active=None):
     Absent periods inside an actor's span have zero emission log-terms, so
     the chain passes through them; periods outside the span are inert.
     Returns ``alpha`` (filtered marginals), ``beta`` (scaled backward
-    messages), ``em`` (emissions over their per-(t, i) maximum ``shift``) and
-    the forward normalisers ``scale``.
+    messages), ``em`` (emissions over their per-(t, i) maximum ``shift``),
+    the forward normalisers ``scale`` and ``right`` = ``em * beta / scale``
+    (the scaled message into each period; row 0 unused).
     """
     with np.errstate(invalid="ignore", divide="ignore"):  # periods outside a chain are inert, masked later
         return _passes_inner(E, first, last, pi, P, active)
@@ -692,17 +712,21 @@ def _passes_inner(E, first, last, pi, P, active):
     alpha = np.empty((T, n, B))
     scale = np.ones((T, n))
     for t in range(T):
-        prior = np.broadcast_to(pis[t], (n, B)) if t == 0 else alpha[t - 1] @ Ps[t]
-        prior = np.where((first == t)[:, None], pis[t][None, :], prior)
-        a = prior * em[t]
+        prior = np.broadcast_to(pis[t], (n, B)).copy() if t == 0 else alpha[t - 1] @ Ps[t]
+        prior[first == t] = pis[t]
+        a = np.multiply(prior, em[t], out=prior)
         scale[t] = a.sum(axis=1)
-        alpha[t] = a / scale[t][:, None]
+        np.divide(a, scale[t][:, None], out=alpha[t])
     beta = np.ones((T, n, B))
+    right = np.empty((T, n, B))  # em * beta / scale: the backward message into each period
+    right[0] = 0.0
     for t in range(T - 2, -1, -1):
-        back = (em[t + 1] * beta[t + 1] / scale[t + 1][:, None]) @ Ps[t + 1].T
+        np.multiply(em[t + 1], beta[t + 1], out=right[t + 1])
+        right[t + 1] /= scale[t + 1][:, None]
+        back = right[t + 1] @ Ps[t + 1].T
         run = (t >= first) & (t < last)
-        beta[t] = np.where(run[:, None], back, 1.0)
-    return alpha, beta, em, scale, shift
+        beta[t][run] = back[run]
+    return alpha, beta, em, scale, shift, right
 
 
 def _forward_backward(E, first, last, pi, P, active=None):
@@ -713,27 +737,44 @@ def _forward_backward(E, first, last, pi, P, active=None):
     each chain, from :math:`H(q_i) = \\log Z_i - E_q[\\log p(z_i)] -
     \\sum_t \\gamma_{it} \\cdot e_{it}` (exact because :math:`q_i` is the
     posterior under these emissions).
+
+    The pairwise marginal of a step into period ``t`` is
+    :math:`\\alpha_{t-1}(k) P_t(k, l)\\, r_t(l)` with ``r`` the scaled backward
+    message into ``t`` (Rabiner 1989, eq. 37); every transition law
+    :math:`P_t(k, l) = P(k, l) a_{tl} / Z_t(k)` is ``P`` scaled by a row and a
+    column factor (:func:`_chain_laws`), so the sum over steps is ``P`` times
+    one product of (n, B, T) and (n, T, B) arrays, with no (n, B, B) array per
+    period.
     """
     T, n, B = E.shape
     ts = np.arange(T)[:, None]
     running = (ts >= first[None, :]) & (ts <= last[None, :])  # (T, n)
-    alpha, beta, em, scale, shift = _passes(E, first, last, pi, P, active)
+    alpha, beta, em, scale, shift, right = _passes(E, first, last, pi, P, active)
     pis, Ps = _chain_laws(pi, P, active, T)
     gamma = alpha * beta
     gamma /= gamma.sum(axis=2, keepdims=True)
-    xi = np.zeros((n, B, B))
     g0 = gamma[first, np.arange(n)]
     expected_prior = (g0 * _log(pis[first])).sum(axis=1)
-    for t in range(1, T):
-        sel = np.flatnonzero((t > first) & (t <= last))
-        if sel.size:
-            right = em[t, sel] * beta[t, sel] / scale[t, sel][:, None]
-            step = alpha[t - 1, sel][:, :, None] * Ps[t][None, :, :] * right[:, None, :]
-            xi[sel] += step
-            expected_prior[sel] += np.einsum("ikl,kl->i", step, _log(Ps[t]))
+    if T > 1:
+        step = running[1:] & (ts[1:] > first[None, :])  # (T-1, n): a step into t of a running chain
+        left = np.where(step[:, :, None], alpha[:-1], 0.0)
+        into = np.where(step[:, :, None], right[1:], 0.0)
+        if active is None:
+            xi = np.matmul(left.transpose(1, 2, 0), into.transpose(1, 0, 2)) * P[None, :, :]
+            expected_prior += np.einsum("ikl,kl->i", xi, _log(P))
+        else:
+            rows = (P[None, :, :] * active[1:, None, :]).sum(axis=2)  # Z_t(k), (T-1, B)
+            xi = np.matmul((left / rows[:, None, :]).transpose(1, 2, 0),
+                           (into * active[1:, None, :]).transpose(1, 0, 2)) * P[None, :, :]
+            weighted = Ps[1:] * _log(Ps[1:])  # (T-1, B, B)
+            expected_prior += (np.matmul(left, weighted) * into).sum(axis=(0, 2))
+    else:
+        xi = np.zeros((n, B, B))
     with np.errstate(invalid="ignore", divide="ignore"):
         log_z = np.where(running, np.log(scale) + shift, 0.0).sum(axis=0)
-    expected_emission = np.where(running[:, :, None], gamma * E, 0.0).sum(axis=(0, 2))
+    product = gamma * E
+    product[~running] = 0.0
+    expected_emission = product.sum(axis=(0, 2))
     entropy = log_z - expected_prior - expected_emission
     return gamma, xi, g0, entropy
 
@@ -755,7 +796,7 @@ def _pairwise(E, data: _Data, pi, P, active=None):
     previous period index (``-1`` for none) and an ``(n_t, B, B)`` array (NaN
     where there is no previous presence).
     """
-    alpha, beta, em, _, _ = _passes(E, data.first, data.last, pi, P, active)
+    alpha, beta, em, _, _, _ = _passes(E, data.first, data.last, pi, P, active)
     T, n, B = E.shape
     _, Ps = _chain_laws(pi, P, active, T)
     present = np.zeros((T, n), dtype=bool)

@@ -466,10 +466,12 @@ def expected_block_stats(A: sp.csr_array, AT, w_out: np.ndarray, w_in: np.ndarra
     m = tau.T @ Atau
     S_out = w_out @ tau
     S_in = w_in @ tau
-    self_w = w_out * w_in
-    N = np.outer(S_out, S_in) - tau.T @ (self_w[:, None] * tau)
     if dc:
+        self_w = w_out * w_in
+        N = np.outer(S_out, S_in) - tau.T @ (self_w[:, None] * tau)
         N += np.diag(self_w @ tau)
+    else:  # unit weights
+        N = np.outer(S_out, S_in) - tau.T @ tau
     return Atau, ATtau, m, N
 
 
