@@ -720,7 +720,8 @@ def _passes_inner(E, first, last, pi, P, active):
     T, n, B = E.shape
     pis, Ps = _chain_laws(pi, P, active, T)
     shift = _last_axis(np.maximum, E)
-    em = np.exp(E - shift[:, :, None])
+    em = np.subtract(E, shift[:, :, None])
+    np.exp(em, out=em)
     alpha = np.empty((T, n, B))
     scale = np.ones((T, n))
     for t in range(T):
@@ -729,15 +730,15 @@ def _passes_inner(E, first, last, pi, P, active):
         a = np.multiply(prior, em[t], out=prior)
         scale[t] = _last_axis(np.add, a)
         np.divide(a, scale[t][:, None], out=alpha[t])
-    beta = np.ones((T, n, B))
+    beta = np.empty((T, n, B))
+    beta[T - 1] = 1.0
     right = np.empty((T, n, B))  # em * beta / scale: the backward message into each period
     right[0] = 0.0
     for t in range(T - 2, -1, -1):
         np.multiply(em[t + 1], beta[t + 1], out=right[t + 1])
         right[t + 1] /= scale[t + 1][:, None]
-        back = right[t + 1] @ Ps[t + 1].T
-        run = (t >= first) & (t < last)
-        beta[t][run] = back[run]
+        np.matmul(right[t + 1], Ps[t + 1].T, out=beta[t])
+        beta[t, np.flatnonzero((t < first) | (t >= last))] = 1.0  # outside the chain's steps
     return alpha, beta, em, scale, shift, right
 
 
