@@ -167,9 +167,9 @@ def entry_terms(rel: Relation, m, srow, scol, diag):
             t = _xlogx_over(m, srow * scol)
             return t if rel.directed else 0.5 * t
         if rel.directed:
-            N = srow * scol - np.where(diag, srow, 0.0)
+            N = srow * scol if diag is False else srow * scol - np.where(diag, srow, 0.0)
             e = m
-            w = 1.0
+            w = None  # weight 1
         else:
             N = np.where(diag, srow * (srow - 1.0) / 2.0, srow * scol)
             e = np.where(diag, m / 2.0, m)
@@ -178,7 +178,7 @@ def entry_terms(rel: Relation, m, srow, scol, diag):
             g = _xlogx_over(e, N) + _xlogx_over(N - e, N)
         else:
             g = _xlogx_over(e, N) - e
-        return w * g
+        return g if w is None else w * g
 
 
 def _xlogx_over(x, y):
@@ -306,6 +306,8 @@ def _add_move_gains(gains: np.ndarray, rel: Relation, labels: np.ndarray, B: int
     si_a = (s_in[a] - ui)[:, None]
     row_a_base = m[a] - c_out
     row_a_base[ar, a] -= ci_aa
+    if rel.directed:
+        col_a = m[:, a].T - c_in  # column a after the move, whatever b
     for b in range(B):
         is_b = np.arange(B)[None, :] == b
         si = si_base.copy()
@@ -323,7 +325,6 @@ def _add_move_gains(gains: np.ndarray, rel: Relation, labels: np.ndarray, B: int
             so = so_base.copy()
             so[:, b] += uo
             other = ~(is_a | is_b)
-            col_a = m[:, a].T - c_in
             col_b = m[:, b][None, :] + c_in
             new += np.where(other, entry_terms(rel, col_a, so, si_a, False), 0.0) @ ones
             new += np.where(other, entry_terms(rel, col_b, so, (s_in[b] + ui)[:, None], False), 0.0) @ ones
