@@ -268,7 +268,8 @@ class DynamicSBM:
             raise ValueError(f"transition_prior must be a finite number >= 0; got {self.transition_prior!r}")
         data = _prepare_periods(periods, self.model == "bernoulli", bool(self.degree_corrected))
         B = lik.check_positions(self.n_positions, data.n)
-        tasks = [(data, B, start, seed, int(self.max_iter), float(self.tol))
+        pooled = _pooled_rels(data)  # built once, for every start
+        tasks = [(data, B, start, seed, int(self.max_iter), float(self.tol), pooled)
                  for start, seed in enumerate(task_seeds(int(self.seed), int(self.restarts)))]
         results = map_tasks(_one_start, tasks, label="dynamic model starts")
         best = max(results, key=lambda r: r[2][-1])  # first of equal bounds: same answer whatever the workers
@@ -375,10 +376,13 @@ def _fit_candidate(k: int, seed: int, options: dict, periods) -> DynamicSBM:
     return DynamicSBM(k, seed=seed, **options).fit(periods)
 
 
-def _one_start(data, B: int, start: int, seed: int, max_iter: int, tol: float):
-    """One EM run: the first start from the pooled spectral partition, the others random."""
+def _one_start(data, B: int, start: int, seed: int, max_iter: int, tol: float, pooled=None):
+    """One EM run: the first start from the pooled spectral partition, the others random.
+
+    ``pooled`` is :func:`_pooled_rels` of ``data`` (built here if None).
+    """
     rng = np.random.default_rng(seed)
-    pooled = _pooled_rels(data)
+    pooled = _pooled_rels(data) if pooled is None else pooled
     init = lik.spectral_labels(pooled, data.n, B, rng) if start == 0 else lik.random_labels(data.n, B, rng)
     labels, _, _ = lik.greedy_ascent(pooled, init, B, rng, 50)
     return _vem(data, labels, B, rng, max_iter, tol)
@@ -933,7 +937,8 @@ def _elbo(data: _Data, state: _State, params: _Params) -> float:
         for t in range(1, data.T):
             sel = (t > data.first) & (t <= data.last)
             if sel.any():
-                chain -= state.gamma[t - 1, sel].sum(axis=0) @ np.log(params.P @ a[t])
+                # the rows of the running chains, summed in place (the same sum as of the rows taken out)
+                chain -= state.gamma[t - 1].sum(axis=0, where=sel[:, None]) @ np.log(params.P @ a[t])
     fit = 0.0
     for t in range(data.T):
         for r, layer in enumerate(data.layers[t]):
