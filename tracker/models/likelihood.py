@@ -206,12 +206,19 @@ def block_terms(rel: Relation, m: np.ndarray, s_out: np.ndarray, s_in: np.ndarra
 
 
 def profile_log_likelihood(rels: list[Relation], labels: np.ndarray, B: int) -> float:
+    return _profile(rels, labels, B)[0]
+
+
+def _profile(rels: list[Relation], labels: np.ndarray, B: int) -> tuple[float, list]:
+    """The profile log-likelihood and each relation's block totals (kept for the next sweep's gains)."""
     total = 0.0
+    totals = []
     for rel in rels:
         m = block_totals(rel, labels, B)
         s_out, s_in = block_sizes(rel, labels, B)
         total += block_terms(rel, m, s_out, s_in).sum() + rel.const
-    return float(total)
+        totals.append(m)
+    return float(total), totals
 
 
 def block_rates(rels: list[Relation], labels: np.ndarray, B: int) -> np.ndarray:
@@ -265,31 +272,33 @@ def tie_counts(rel: Relation, labels: np.ndarray, B: int, n: int) -> tuple[np.nd
     return out, inc
 
 
-def move_gains(rels: list[Relation], labels: np.ndarray, B: int) -> np.ndarray:
+def move_gains(rels: list[Relation], labels: np.ndarray, B: int, totals: list | None = None) -> np.ndarray:
     """Exact change of the log-likelihood if actor ``i`` alone moved to ``b``.
 
     Returns an (n, B) array; the entry of an actor's own position is 0.
     Moving ``i`` from ``a`` to ``b`` changes the block totals by
     ``m - e_a c_out^T - c_in e_a^T + e_b c_out^T + c_in e_b^T`` (``c`` are
     i's tie totals to each position; the zero diagonal makes this exact), so
-    only rows and columns ``a`` and ``b`` change.
+    only rows and columns ``a`` and ``b`` change.  ``totals``: the relations'
+    block totals for ``labels``, if already known (computed otherwise).
     """
     gains = np.zeros((labels.size, B))
+    if totals is None:
+        totals = [block_totals(rel, labels, B) for rel in rels]
     # entries with a == b are meaningless (and may be inf - inf); they are reset below
     with np.errstate(invalid="ignore", divide="ignore"):
-        for rel in rels:
-            _add_move_gains(gains, rel, labels, B)
+        for rel, m in zip(rels, totals):
+            _add_move_gains(gains, rel, labels, B, m)
     gains[np.arange(labels.size), labels] = 0.0
     return gains
 
 
-def _add_move_gains(gains: np.ndarray, rel: Relation, labels: np.ndarray, B: int) -> None:
+def _add_move_gains(gains: np.ndarray, rel: Relation, labels: np.ndarray, B: int, m: np.ndarray) -> None:
     n = labels.size
     ar = np.arange(n)
     a = labels
     is_a = np.arange(B)[None, :] == a[:, None]
     ones = np.ones(B)
-    m = block_totals(rel, labels, B)
     s_out, s_in = block_sizes(rel, labels, B)
     c_out, c_in = tie_counts(rel, labels, B, n)
     T = block_terms(rel, m, s_out, s_in)
@@ -341,12 +350,12 @@ def greedy_ascent(rels, labels, B, rng, max_sweeps):
     log-likelihood of the initial partition.
     """
     labels = np.array(labels, dtype=np.int64)
-    current = profile_log_likelihood(rels, labels, B)
+    current, totals = _profile(rels, labels, B)
     history = [current]
     if B == 1:
         return labels, current, history
     for _ in range(max_sweeps):
-        gains = move_gains(rels, labels, B)
+        gains = move_gains(rels, labels, B, totals)
         sizes = np.bincount(labels, minlength=B)
         gains[sizes[labels] <= 1] = 0.0  # a position never empties
         target = gains.argmax(1)
@@ -360,9 +369,9 @@ def greedy_ascent(rels, labels, B, rng, max_sweeps):
         while movers.size:
             trial = labels.copy()
             trial[movers] = target[movers]
-            value = profile_log_likelihood(rels, trial, B)
+            value, trial_totals = _profile(rels, trial, B)
             if value > current:
-                labels, current, moved = trial, value, True
+                labels, current, totals, moved = trial, value, trial_totals, True
                 break
             if movers.size == 1:
                 break
