@@ -184,8 +184,10 @@ def entry_terms(rel: Relation, m, srow, scol, diag):
 def _xlogx_over(x, y):
     """``x log(x / y)`` with ``0 log 0 = 0`` (plain logs of moderate numbers are fast)."""
     x, y = np.broadcast_arrays(x, y)
-    pos = x > 0
-    return x * np.log(np.where(pos, x, 1.0) / np.where(pos, y, 1.0))
+    ratio = np.ones(x.shape)
+    np.divide(x, y, out=ratio, where=x > 0)  # 1 where x = 0, so that the term is 0 * log 1 = 0
+    np.log(ratio, out=ratio)
+    return np.multiply(x, ratio, out=ratio)
 
 
 def block_totals(rel: Relation, labels: np.ndarray, B: int) -> np.ndarray:
