@@ -774,8 +774,11 @@ def _forward_backward(E, first, last, pi, P, active=None):
     expected_prior = _last_axis(np.add, g0 * _log(pis[first]))
     if T > 1:
         step = running[1:] & (ts[1:] > first[None, :])  # (T-1, n): a step into t of a running chain
-        left = np.where(step[:, :, None], alpha[:-1], 0.0)
-        into = np.where(step[:, :, None], right[1:], 0.0)
+        # alpha and right are not needed after gamma: masked in place (no more (T, n, B) arrays)
+        idle = ~step[:, :, None]
+        left, into = alpha[:-1], right[1:]
+        np.copyto(left, 0.0, where=idle)
+        np.copyto(into, 0.0, where=idle)
         if active is None:
             xi = np.matmul(left.transpose(1, 2, 0), into.transpose(1, 0, 2)) * P[None, :, :]
             expected_prior += np.einsum("ikl,kl->i", xi, _log(P))
@@ -790,7 +793,7 @@ def _forward_backward(E, first, last, pi, P, active=None):
     with np.errstate(invalid="ignore", divide="ignore"):
         log_z = np.where(running, np.log(scale) + shift, 0.0).sum(axis=0)
     product = gamma * E
-    product[~running] = 0.0
+    np.copyto(product, 0.0, where=~running[:, :, None])
     expected_emission = _last_axis(np.add, product).sum(axis=0)
     entropy = log_z - expected_prior - expected_emission
     return gamma, xi, g0, entropy
