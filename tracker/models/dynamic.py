@@ -686,9 +686,9 @@ def _emissions(data: _Data, state: _State, params: _Params) -> np.ndarray:
         for r, layer in enumerate(data.layers[t]):
             Atau, ATtau, _, _ = state.stats[t][r]
             f1, f2 = _link(params.theta[r], data.bernoulli)
-            S_out = layer.w_out @ tau
-            S_in = layer.w_in @ tau
             if layer.dc:
+                S_out = layer.w_out @ tau
+                S_in = layer.w_in @ tau
                 wo, wi = layer.w_out[:, None], layer.w_in[:, None]
                 if data.directed[r]:
                     e += Atau @ f1.T + ATtau @ f1
@@ -697,11 +697,13 @@ def _emissions(data: _Data, state: _State, params: _Params) -> np.ndarray:
                 else:
                     e += Atau @ f1.T + wo * ((S_in[None, :] - wi * tau) @ f2.T)
                     e += 0.5 * (wo * wi) * np.diag(f2)[None, :]
-            elif data.directed[r]:  # unit weights: the products with w are the identity
-                e += Atau @ f1.T + ATtau @ f1
-                e += (S_in[None, :] - tau) @ f2.T + (S_out[None, :] - tau) @ f2
-            else:
-                e += Atau @ f1.T + (S_in[None, :] - tau) @ f2.T
+            else:  # unit weights: the products with w are the identity, and S_out = S_in
+                others = layer.w_in @ tau - tau  # each actor's expected others in each position
+                if data.directed[r]:
+                    e += Atau @ f1.T + ATtau @ f1
+                    e += others @ f2.T + others @ f2
+                else:
+                    e += Atau @ f1.T + others @ f2.T
         E[t, idx] = e
     return E
 
