@@ -482,13 +482,13 @@ def expected_block_stats(A: sp.csr_array, AT, w_out: np.ndarray, w_in: np.ndarra
     ATtau = AT @ tau if AT is not None else Atau
     m = tau.T @ Atau
     S_out = w_out @ tau
-    S_in = w_in @ tau
     if dc:
+        S_in = w_in @ tau
         self_w = w_out * w_in
         N = np.outer(S_out, S_in) - tau.T @ (self_w[:, None] * tau)
         N += np.diag(self_w @ tau)
-    else:  # unit weights
-        N = np.outer(S_out, S_in) - tau.T @ tau
+    else:  # unit weights (``w`` are ones without degree correction): S_in = S_out, w_i w'_i = 1
+        N = np.outer(S_out, S_out) - tau.T @ tau
     return Atau, ATtau, m, N
 
 
