@@ -169,13 +169,14 @@ def _found(data, state, params, B, rng, max_iter, tol, active, current, cost, dy
     E = dyn._emissions(data, state, params)
     starts = []  # (bound at the start, k, b, state, params, mask)
     for k in range(B):
+        best_other = _best_other(E, k)
         for b in periods:
             trial = active.copy()
             trial[:, k] = True
             trial[:b, k] = False
             if (trial.sum(axis=1) == 0).any():
                 continue
-            start_state, start_params = _proposal(data, state, params, E, k, b, new_at[b], trial, B, dyn)
+            start_state, start_params = _proposal(data, state, params, best_other, k, b, new_at[b], trial, B, dyn)
             starts.append((dyn._elbo(data, start_state, start_params), k, b, start_state, start_params, trial))
     # EM only from the most promising starts: the proposals' hard-assignment bounds rank them
     starts.sort(key=lambda s: (-s[0], s[1], s[2]))
@@ -188,16 +189,21 @@ def _found(data, state, params, B, rng, max_iter, tol, active, current, cost, dy
     return None if best is None else (best[1], best[2])
 
 
-def _proposal(data, state, params, E, k, b, founders, active, B, dyn):
-    """Start of a merge-and-found proposal: ``k`` emptied into the best other positions, founded by ``founders`` at ``b``."""
-    gamma = state.gamma.copy()
+def _best_other(E, k):
+    """Each actor-period's position of highest emission term other than ``k``, (T, n) (first of equals)."""
     scores = E.copy()
     scores[:, :, k] = -np.inf
-    best = scores.argmax(axis=2)  # (T, n)
+    return scores.argmax(axis=2)
+
+
+def _proposal(data, state, params, best, k, b, founders, active, B, dyn):
+    """Start of a merge-and-found proposal: ``k`` emptied into the best other positions (``best``, from
+    :func:`_best_other`), founded by ``founders`` at ``b``."""
+    gamma = state.gamma.copy()
     mass = gamma[:, :, k].copy()
     gamma[:, :, k] = 0.0
     t_idx, i_idx = np.indices(best.shape)
-    np.add.at(gamma, (t_idx.ravel(), i_idx.ravel(), best.ravel()), mass.ravel())
+    gamma[t_idx, i_idx, best] += mass  # one entry per actor-period: no index repeats
     gamma[b:, founders] = 0.0
     gamma[b:, founders, k] = 1.0
     stats = dyn._all_stats(data, gamma)
