@@ -160,3 +160,21 @@ def test_argument_bytes_count_arrays_inside_sparse_matrices_and_snapshots():
     assert stored + 4 * 300 <= snap_bytes <= stored + 5 * 300 + 2048  # + the actor names
     assert twice == sparse_bytes  # the same object twice in one task ships once (pickle's memo)
     assert math.isclose(execution._nbytes(list(range(1000)), set(), 0), 8000, rel_tol=0.01)
+
+
+def _blas_threads(_):
+    from threadpoolctl import threadpool_info
+
+    return os.getpid(), max(info["num_threads"] for info in threadpool_info() if info["user_api"] == "blas")
+
+
+def test_tasks_run_here_get_a_workers_thread_limits(monkeypatch, cold_pool):
+    # joblib gives a loky worker cores // workers threads (its inner_max_num_threads); a task of a
+    # multi-worker batch run here gets the same, so its time predicts a worker's.  One worker: no limit.
+    from threadpoolctl import threadpool_info
+
+    before = max(info["num_threads"] for info in threadpool_info() if info["user_api"] == "blas")
+    fake_clock(monkeypatch, [0.001])
+    limited = map_tasks(_blas_threads, [(i,) for i in range(3)], workers=2)
+    assert all(ran_here(limited)) and {n for _, n in limited} == {max(1, (os.cpu_count() or 1) // 2)}
+    assert {n for _, n in map_tasks(_blas_threads, [(i,) for i in range(3)], workers=1)} == {before}
