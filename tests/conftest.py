@@ -62,6 +62,23 @@ def study(study_path):
 
 
 @pytest.fixture
+def pool_for_every_batch(monkeypatch):
+    """With more than one worker, every batch of three or more tasks reaches the process pool.
+
+    ``map_tasks`` keeps a batch in this process when a pool would not finish it
+    sooner (:func:`tracker.execution.pool_pays`); the small studies of the tests
+    are such batches.  A test that compares one worker with a pool sets the
+    pool's costs to zero, so that the tasks after the first (timed here) run
+    in worker processes.
+    """
+    from tracker import execution
+
+    for name in ("POOL_START_SECONDS", "POOL_WARM_SECONDS", "TASK_DISPATCH_SECONDS"):
+        monkeypatch.setattr(execution, name, 0.0)
+    monkeypatch.setattr(execution, "SHIP_BYTES_PER_SECOND", float("inf"))
+
+
+@pytest.fixture
 def write_csv(tmp_path: Path):
     """write_csv(rows, name=..., header=..., delimiter=..., bom=False) -> path."""
 

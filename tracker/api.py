@@ -63,9 +63,11 @@ class Study:
         is an error).  Opening a study made by an older roletrail upgrades its
         schema in place, keeping its data.
     workers : int, optional
-        Local processes for fits, refits and tests (default: every core; 1 =
-        this process only).  *How* to compute never changes *what* is
-        computed: the same seed gives the same stored results for any number.
+        Most local processes for fits, refits and tests (default: every core;
+        1 = this process only); a batch of tasks too small to gain from a pool
+        runs in this process (:func:`tracker.execution.pool_pays`).  *How* to
+        compute never changes *what* is computed: the same seed gives the same
+        stored results for any number.
     scheduler : str, optional
         Address of a Dask distributed scheduler (``tcp://host:8786``; default
         ``$ROLETRAIL_SCHEDULER``): the same tasks run on its workers instead.

@@ -152,7 +152,9 @@ def computing(func=None, *, parallel: bool = True):
                                help="Run the computations on this Dask cluster, e.g. tcp://host:8786 "
                                     "[env ROLETRAIL_SCHEDULER].")(wrapper)
         wrapper = click.option("--workers", type=click.IntRange(min=1), default=None, metavar="N",
-                               help="Processes to compute with on this machine [default: every core].")(wrapper)
+                               help="Most processes to compute with on this machine [default: every core]; "
+                                    "batches too small to gain from more run in this process. "
+                                    "Results never depend on it.")(wrapper)
     return wrapper
 
 

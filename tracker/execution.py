@@ -3,7 +3,8 @@
 Per-period fits, refits on null-model draws, bootstrap refits and smoothing
 restarts are all *independent tasks* of a pure function.  :func:`map_tasks`
 runs them serially (``workers=1``), on local processes through joblib's loky
-backend (the default: every core), or on an existing Dask distributed cluster
+backend (the default: every core, when the batch is worth a pool; see
+:func:`pool_pays`), or on an existing Dask distributed cluster
 (``scheduler="tcp://host:8786"`` or ``$ROLETRAIL_SCHEDULER``).  The study
 database is never touched by a task: tasks receive arrays and return results,
 and the caller stores them.
@@ -27,13 +28,14 @@ import atexit
 import contextlib
 import contextvars
 import os
+import time
 from dataclasses import dataclass
 from typing import Callable, Iterable, Iterator, Sequence
 
 import numpy as np
 
 __all__ = ["map_tasks", "task_seeds", "resolve_workers", "resolve_scheduler", "Progress", "Execution",
-           "configured", "overriding", "current", "step_progress", "CONNECT_TIMEOUT_ENV"]
+           "configured", "overriding", "current", "step_progress", "CONNECT_TIMEOUT_ENV", "pool_pays"]
 
 Progress = Callable[[int, int], None]  # (done, total)
 Reporter = Callable[[str, int], Progress]  # (label, total) -> progress callback
@@ -144,8 +146,14 @@ def map_tasks(
         A pure, picklable, module-level function.
     tasks : iterable of argument tuples
     workers : int, optional
-        Local processes; default from :func:`configured` (else every core;
-        1 runs in this process).  Inside a task it is always 1.
+        Most local processes; default from :func:`configured` (else every core;
+        1 runs in this process).  Inside a task it is always 1.  More than one
+        is an upper bound: the first task runs in this process and is timed,
+        and the rest go to a pool only when :func:`pool_pays` says they finish
+        sooner there, counting the pool's start and the shipping of their
+        arguments (else the next task runs here and the question is asked
+        again with its time).  A batch of cheap tasks thus never starts a
+        pool.  Where a task runs never changes its result.
     scheduler : str, optional
         Address of a Dask distributed scheduler; overrides ``workers``.
     progress : callable(done, total), optional
@@ -171,22 +179,166 @@ def map_tasks(
     if address is not None:
         return _map_dask(fn, tasks, address, progress)
     n_workers = min(resolve_workers(workers), total)
-    if n_workers <= 1:
-        out = []
-        for i, task in enumerate(tasks, 1):
-            out.append(fn(*task))
+    out: list = []
+    spent = 0.0
+    sizes = _task_bytes(tasks) if n_workers > 1 else []
+    warm = _pool_is_warm(n_workers)
+    left_bytes = sum(sizes)
+    with _worker_threads(n_workers):
+        while len(out) < total:
+            done = len(out)
+            if n_workers > 1 and done and pool_pays(spent / done, total - done, n_workers, left_bytes, warm=warm):
+                break
+            start = _clock()
+            out.append(fn(*tasks[done]))
+            spent += _clock() - start
+            left_bytes -= sizes[done] if sizes else 0
             if progress is not None:
-                progress(i, total)
-        return out
+                progress(len(out), total)
+    if len(out) < total:
+        out += _map_pool(fn, tasks[len(out):], n_workers, progress, offset=len(out), total=total)
+    return out
+
+
+#: Seconds to start a pool of local worker processes for a batch (loky, cold:
+#: spawn the processes and import roletrail, numpy and scipy in each).  Measured on
+#: the 2-core development machine, load average 3 (2026-12-02): 2 workers
+#: running one task of ``tracker.api``'s import 3.1 s (twice); with a task that
+#: imports nothing 0.5 s; under a load average of 15 the bare start took 3.6 s
+#: (tests/benchmarks/README.md).  The heavy import is the usual case: a task's
+#: function lives in a roletrail module.
+POOL_START_SECONDS = 3.0
+#: Seconds to hand a batch to a pool that an earlier batch of this process
+#: started and that is still alive: 0.011-0.031 s for two trivial tasks
+#: measured on the same machine.
+POOL_WARM_SECONDS = 0.05
+#: Seconds of dispatch per task on a warm pool (pickling a small task, the pipe,
+#: the result back): 200 trivial tasks took 0.014 s; 2 ms per task leaves room
+#: for results larger than a number.
+TASK_DISPATCH_SECONDS = 0.002
+#: Bytes per second of task arguments shipped to the workers (pickling, joblib's
+#: memory-mapping of large arrays, the copy): two tasks each carrying a 50 MB
+#: sparse matrix took 0.18 s on a warm pool (pickling alone 0.026 s), so about
+#: 280 MB/s; taken as 100 MB/s.
+SHIP_BYTES_PER_SECOND = 100e6
+#: joblib stops loky workers idle this long (its ``idle_worker_timeout``, 300 s);
+#: a pool used less than this ago, minus a minute's margin, counts as warm.
+POOL_IDLE_SECONDS = 240.0
+
+_clock = time.perf_counter  # the clock that times tasks run here (tests inject another)
+_POOL_USED: dict[int, float] = {}  # pool size -> time.monotonic() of its last batch
+
+
+def pool_pays(seconds_per_task: float, remaining: int, workers: int, payload_bytes: float = 0.0,
+              *, warm: bool = False) -> bool:
+    """Whether ``remaining`` tasks finish sooner on a pool of ``workers`` processes than here.
+
+    The rule, with ``t`` the mean time of the batch's tasks run here so far,
+    ``m`` the tasks left and ``w = min(workers, m)``::
+
+        serial  = t * m
+        pool    = t * ceil(m / w) + start + m * TASK_DISPATCH_SECONDS
+                  + payload_bytes / SHIP_BYTES_PER_SECOND
+        use the pool when pool < serial
+
+    where ``start`` is :data:`POOL_START_SECONDS` (cold) or
+    :data:`POOL_WARM_SECONDS` (``warm``: a pool of this size served a batch
+    of this process within :data:`POOL_IDLE_SECONDS`).  The constants were
+    measured on the 2-core development machine (see their comments).  Only the
+    time depends on the answer, never the results.
+
+    >>> pool_pays(0.01, 50, 2)        # half a second of work: not worth a pool
+    False
+    >>> pool_pays(2.0, 50, 2)         # 100 s of work: the pool halves it
+    True
+    >>> pool_pays(0.2, 50, 2, warm=True)
+    True
+    """
+    if seconds_per_task < 0 or remaining < 0 or workers < 1:
+        raise ValueError("seconds_per_task and remaining must be >= 0 and workers >= 1")
+    w = min(workers, remaining)
+    if w <= 1:
+        return False
+    serial = seconds_per_task * remaining
+    start = POOL_WARM_SECONDS if warm else POOL_START_SECONDS
+    pool = (seconds_per_task * -(-remaining // w) + start + remaining * TASK_DISPATCH_SECONDS
+            + payload_bytes / SHIP_BYTES_PER_SECOND)
+    return pool < serial
+
+
+def _worker_threads(n_workers: int):
+    """The thread limits of a pool worker, for tasks of a batch of ``n_workers`` run in this process.
+
+    joblib gives each loky worker ``cores // n_workers`` threads of BLAS and
+    OpenMP; a task timed here under the same limits predicts its time there.
+    It also spares a loaded machine the spinning of idle OpenMP threads: on
+    the 2-core development machine at load average 5-7 (2026-12-02), 25 null
+    refits of a 300-actor period took 18.6-28.7 s with 2 OpenMP threads and
+    3.9 s with 1.  With one worker nothing is limited (this process as it is).
+    """
+    if n_workers <= 1:
+        return contextlib.nullcontext()
+    from threadpoolctl import threadpool_limits
+
+    return threadpool_limits(limits=max(1, (os.cpu_count() or 1) // n_workers))
+
+
+def _pool_is_warm(workers: int) -> bool:
+    used = _POOL_USED.get(workers)
+    return used is not None and time.monotonic() - used < POOL_IDLE_SECONDS
+
+
+def _map_pool(fn: Callable, tasks: list[tuple], n_workers: int, progress: Progress | None,
+              offset: int, total: int) -> list:
+    """The tasks on joblib's loky pool of ``n_workers`` processes (reused across batches), in order."""
     from joblib import Parallel, delayed
 
     parallel = Parallel(n_jobs=n_workers, backend="loky", return_as="generator")
     out = []
-    for i, result in enumerate(parallel(delayed(_in_task)(fn, task) for task in tasks), 1):
-        out.append(result)
-        if progress is not None:
-            progress(i, total)
+    try:
+        for result in parallel(delayed(_in_task)(fn, task) for task in tasks):
+            out.append(result)
+            if progress is not None:
+                progress(offset + len(out), total)
+    finally:
+        _POOL_USED[n_workers] = time.monotonic()
     return out
+
+
+def _task_bytes(tasks: list[tuple]) -> list[int]:
+    """Approximate bytes each task would ship to a worker: its arrays, strings and containers."""
+    return [_nbytes(task, set(), 0) for task in tasks]
+
+
+def _nbytes(obj, seen: set, depth: int) -> int:
+    """Bytes of numpy arrays (and scipy sparse ones, through their attributes), strings and their containers.
+
+    An approximation for :func:`pool_pays`: long sequences are sized from their
+    first 16 items, and nesting deeper than 6 levels counts nothing.
+    """
+    if id(obj) in seen or depth > 6:
+        return 0
+    seen.add(id(obj))
+    if isinstance(obj, np.ndarray):
+        return int(obj.nbytes)
+    if isinstance(obj, (str, bytes, bytearray)):
+        return len(obj)
+    if isinstance(obj, (int, float, bool, complex, type(None))):
+        return 8
+    if isinstance(obj, dict):
+        items = list(obj.values())
+    elif isinstance(obj, (list, tuple, set, frozenset)):
+        items = list(obj) if len(obj) <= 16 else list(obj)[:16]
+        if len(obj) > 16:
+            head = sum(_nbytes(item, seen, depth + 1) for item in items)
+            return head * len(obj) // 16
+    elif hasattr(obj, "__dict__") and not callable(obj):
+        items = list(vars(obj).values())
+    elif hasattr(obj, "__slots__"):
+        items = [getattr(obj, name, None) for name in obj.__slots__]
+    else:
+        return 64
+    return sum(_nbytes(item, seen, depth + 1) for item in items)
 
 
 def _map_dask(fn: Callable, tasks: list[tuple], address: str, progress: Progress | None) -> list:

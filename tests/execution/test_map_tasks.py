@@ -7,19 +7,20 @@ import os
 import numpy as np
 import pytest
 
-from tests.execution.workflow import draw, nested
+from tests.execution.workflow import draw, draw_where, nested
 from tracker.execution import configured, current, map_tasks, overriding, task_seeds
 
 cluster = pytest.mark.skipif(not os.environ.get("ROLETRAIL_TEST_SCHEDULER"),
                              reason="Dask run: set ROLETRAIL_TEST_SCHEDULER to a scheduler address (.ci/run starts one)")
 
 
-def test_random_tasks_identical_for_one_and_two_workers():
+def test_random_tasks_identical_for_one_and_two_workers(pool_for_every_batch):
     tasks = [(s, 5) for s in task_seeds(42, 6)]
     reference = [draw(*t) for t in tasks]  # the definition: a plain loop
     for workers in (1, 2):
-        got = map_tasks(draw, tasks, workers=workers)
-        assert all(np.array_equal(a, b) for a, b in zip(reference, got))
+        got = map_tasks(draw_where, tasks, workers=workers)
+        assert all(np.array_equal(a, b) for a, (_, b) in zip(reference, got))
+        assert {pid == os.getpid() for pid, _ in got} == ({True} if workers == 1 else {True, False})
 
 
 def test_task_seeds_are_distinct_streams():
@@ -28,26 +29,30 @@ def test_task_seeds_are_distinct_streams():
     assert len(set(seeds)) == 1000 and task_seeds(0, 3) == seeds[:3] and task_seeds(1, 3) != seeds[:3]
 
 
-def test_nested_tasks_run_serially_with_the_same_answer():
-    got = map_tasks(nested, [(1,), (2,)], workers=2)
-    assert [g[0] for g in got] == [1, 1]
-    for (_, inner), seed in zip(got, (1, 2)):
+def test_nested_tasks_run_serially_with_the_same_answer(pool_for_every_batch):
+    # The first task runs here (with the settings in force); the others in the pool, where nested batches are serial.
+    got = map_tasks(nested, [(1,), (2,), (3,)], workers=2)
+    assert [g[0] for g in got] == [None, 1, 1]
+    for (_, inner), seed in zip(got, (1, 2, 3)):
         assert all(np.array_equal(a, draw(s, 2)) for a, s in zip(inner, task_seeds(seed, 3)))
 
 
-def test_progress_reaches_total_and_reporter_is_used():
+def test_progress_reaches_total_and_reporter_is_used(pool_for_every_batch):
     seen = []
     with configured(workers=2, reporter=lambda label, total: (lambda done, t: seen.append((label, done, t)))):
         map_tasks(draw, [(1, 2), (2, 2), (3, 2)], label="drawing")
     assert seen[-1] == ("drawing", 3, 3) and [s[1] for s in seen] == [1, 2, 3]
 
 
-def test_a_user_error_in_a_task_comes_back_as_itself():
+@pytest.mark.parametrize("where", ["here", "pool"])
+def test_a_user_error_in_a_task_comes_back_as_itself(where, request):
     from tracker.errors import UsageError
     from tracker.ingest.periods import parse_scheme
 
+    if where == "pool":
+        request.getfixturevalue("pool_for_every_batch")
     with pytest.raises(UsageError, match="unknown period 'bogus'"):
-        map_tasks(parse_scheme, [("year",), ("bogus",)], workers=2)
+        map_tasks(parse_scheme, [("year",), ("year",), ("bogus",)], workers=2)
 
 
 def test_overriding_keeps_what_is_not_given():

@@ -9,8 +9,9 @@ from tests.execution.workflow import analyse, assert_same, stored
 
 # The default dynamic model, each period alone (one task per period) and periods smoothed together.
 @pytest.mark.parametrize("method, smooth", [("dynamic", None), ("structural", "off"), ("structural", "auto")])
-def test_one_and_two_workers_store_identical_results(tmp_path, events_file, method, smooth):
-    # The reference is the serial run (--workers 1: a plain loop in this process).
+def test_one_and_two_workers_store_identical_results(tmp_path, events_file, method, smooth, pool_for_every_batch):
+    # The reference is the serial run (--workers 1: a plain loop in this process); with two
+    # workers every batch of three or more tasks goes to the pool after its first task.
     one = tmp_path / "one.db"
     two = tmp_path / "two.db"
     structures_one = analyse(one, events_file, "--workers", "1", method=method, smooth=smooth)

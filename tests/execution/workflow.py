@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import os
+
 import numpy as np
 import pandas as pd
 from click.testing import CliRunner
@@ -78,6 +80,11 @@ def assert_same(a: dict, b: dict) -> None:
 def draw(seed: int, n: int):
     """A randomised task: ``n`` normal draws from its own seed."""
     return np.random.default_rng(seed).normal(size=n)
+
+
+def draw_where(seed: int, n: int):
+    """:func:`draw` and the id of the process that drew it."""
+    return os.getpid(), draw(seed, n)
 
 
 def nested(seed: int):

@@ -107,7 +107,7 @@ def test_bad_arguments_raise_value_error():
         benjamini_hochberg([0.2, 1.5])
 
 
-def test_same_answer_for_any_number_of_workers():
+def test_same_answer_for_any_number_of_workers(pool_for_every_batch):
     a = _planted_digraph(np.random.default_rng(4))
     proc = Procedure(positions=3)
     with configured(workers=1):

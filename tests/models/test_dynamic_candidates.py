@@ -19,7 +19,7 @@ def _periods():
     return out
 
 
-def test_candidates_in_parallel_equal_the_serial_fits_and_icl_picks_the_planted_three():
+def test_candidates_in_parallel_equal_the_serial_fits_and_icl_picks_the_planted_three(pool_for_every_batch):
     # Source: the planted partition of networkx.planted_partition_graph (3 groups);
     # reference: each candidate fitted alone, serially, by DynamicSBM.
     periods = _periods()

@@ -48,7 +48,7 @@ def test_held_out_density_uses_the_other_periods_ties():
 
 # The default dynamic model, and a descriptive method with each period fitted alone.
 @pytest.mark.parametrize("fit", [{}, {"method": "structural", "smoothing": 0}])
-def test_move_confidence_is_the_same_for_any_number_of_workers(tmp_path, fit):
+def test_move_confidence_is_the_same_for_any_number_of_workers(tmp_path, fit, pool_for_every_batch):
     # Source: the execution contract (tracker/execution.py): task seeds from SeedSequence,
     # results in task order, so workers never change the answer.
     study, _ = planted_study(tmp_path, n_actors=50, n_positions=3, n_periods=3, density_in=0.25,
