@@ -41,7 +41,7 @@ ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from bench_scaling import MOVE_RATE, baseline  # noqa: E402
+from bench_scaling import MOVE_RATE, baseline, planted_ties  # noqa: E402
 
 STEPS = ("dynamic", "sbm-data", "sbm-null")
 
@@ -55,23 +55,9 @@ def planted_periods(n: int, periods: int, *, degree: float = 5.0, positions: int
     tied in that period (an actor with no tie in a period is absent from it,
     as after an import of events).
     """
-    rng = np.random.default_rng(seed)
-    truth = rng.integers(0, positions, n)
     out = []
-    for t in range(periods):
-        if t and move_rate > 0:
-            movers = rng.random(n) < move_rate
-            truth[movers] = (truth[movers] + rng.integers(1, positions, int(movers.sum()))) % positions
-        members = [np.flatnonzero(truth == k) for k in range(positions)]
-        k = int(degree * n / 2)
-        src = rng.integers(0, n, k)
-        inside = rng.random(k) < 0.6
-        dst = rng.integers(0, n, k)
-        for p in range(positions):
-            pick = inside & (truth[src] == p)
-            dst[pick] = members[p][rng.integers(0, members[p].size, int(pick.sum()))]
-        keep = src != dst
-        src, dst = src[keep], dst[keep]
+    for _, src, dst in planted_ties(n, periods, degree=degree, positions=positions, seed=seed,
+                                    move_rate=move_rate):
         tied = np.unique(np.concatenate([src, dst]))
         local = np.full(n, -1)
         local[tied] = np.arange(tied.size)

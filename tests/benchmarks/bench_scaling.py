@@ -78,34 +78,42 @@ def make_events(path: Path, n: int, periods: int, *, degree: float = 5.0, positi
     """
     import pandas as pd
 
-    rng = np.random.default_rng(seed)
-    truth = rng.integers(0, positions, n)
     history = []
     total = 0
     with open(path, "w") as handle:
         handle.write("source,target,year\n")
-        for t, year in enumerate(range(2000, 2000 + periods)):
-            if t and move_rate > 0:
-                movers = rng.random(n) < move_rate
-                truth[movers] = (truth[movers] + rng.integers(1, positions, int(movers.sum()))) % positions
-            history.append(truth.copy())
-            members = [np.flatnonzero(truth == k) for k in range(positions)]
-            k = int(degree * n / 2)
-            src = rng.integers(0, n, k)
-            inside = rng.random(k) < 0.6
-            dst = rng.integers(0, n, k)
-            for p in range(positions):
-                pick = inside & (truth[src] == p)
-                dst[pick] = members[p][rng.integers(0, members[p].size, int(pick.sum()))]
-            keep = src != dst
-            frame = pd.DataFrame({"source": src[keep], "target": dst[keep]})
+        for year, (truth, src, dst) in enumerate(planted_ties(n, periods, degree=degree, positions=positions,
+                                                              seed=seed, move_rate=move_rate), start=2000):
+            history.append(truth)
+            frame = pd.DataFrame({"source": src, "target": dst})
             frame["source"] = "actor " + frame["source"].astype(str)
             frame["target"] = "actor " + frame["target"].astype(str)
             frame["year"] = year
             frame.to_csv(handle, header=False, index=False)
-            total += int(keep.sum())
+            total += int(src.size)
     np.save(truth_path(path), np.asarray(history, dtype=np.int8))
     return total
+
+
+def planted_ties(n: int, periods: int, *, degree: float = 5.0, positions: int = 4, seed: int = 0,
+                 move_rate: float = MOVE_RATE):
+    """Per period ``(planted positions, sources, targets)``: the draws behind :func:`make_events`, in memory."""
+    rng = np.random.default_rng(seed)
+    truth = rng.integers(0, positions, n)
+    for t in range(periods):
+        if t and move_rate > 0:
+            movers = rng.random(n) < move_rate
+            truth[movers] = (truth[movers] + rng.integers(1, positions, int(movers.sum()))) % positions
+        members = [np.flatnonzero(truth == k) for k in range(positions)]
+        k = int(degree * n / 2)
+        src = rng.integers(0, n, k)
+        inside = rng.random(k) < 0.6
+        dst = rng.integers(0, n, k)
+        for p in range(positions):
+            pick = inside & (truth[src] == p)
+            dst[pick] = members[p][rng.integers(0, members[p].size, int(pick.sum()))]
+        keep = src != dst
+        yield truth.copy(), src[keep], dst[keep]
 
 
 def truth_path(csv: Path) -> Path:
