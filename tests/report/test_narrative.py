@@ -99,3 +99,30 @@ def test_long_lists_are_shortened_and_no_moves_said_plainly():
 def test_is_low_confidence():
     assert is_low_confidence(0.49) and not is_low_confidence(0.5)
     assert not is_low_confidence(None) and not is_low_confidence("n/a")
+
+
+def _many_moves(confidences: list[float]) -> pd.DataFrame:
+    n = len(confidences)
+    return pd.DataFrame(dict(actor=[f"a{i:02d}" for i in range(n)], from_period=["spring"] * n,
+                             to_period=["summer"] * n, from_track=[1] * n, to_track=[2] * n,
+                             confidence=confidences))
+
+
+def test_many_low_confidence_moves_are_counted_not_listed():
+    # Ten uncertain moves and two sure ones into T2: eight are named, two counted.
+    sentences = describe_changes({"moves": _many_moves([0.1] * 10 + [0.9, 0.9])}, PERIODS)
+    move = next(s for s in sentences if s.startswith("Between spring and summer"))
+    assert move.endswith("Low confidence, possibly noise: a00 (0.10), a01 (0.10), a02 (0.10), "
+                         "a03 (0.10), a04 (0.10), a05 (0.10), a06 (0.10), a07 (0.10) and 2 others.")
+    assert "a08 (0.10)" not in move
+
+
+def test_a_group_of_only_uncertain_moves_is_summed_up():
+    # 1,200 moves, every one below 0.5 (the highest 0.45): one clause, no list of names.
+    confidences = [0.05] * 1199 + [0.45]
+    moves = _many_moves(confidences).assign(actor=[f"b{i:04d}" for i in range(1200)])
+    sentences = describe_changes({"moves": moves}, PERIODS)
+    move = next(s for s in sentences if s.startswith("Between spring and summer"))
+    assert move == ("Between spring and summer, b0000, b0001, b0002, b0003, b0004, b0005, b0006, "
+                    "b0007 and 1,192 others moved into T2 (from T1). All 1,200 of these moves "
+                    "have low confidence (at most 0.45) and may be noise.")

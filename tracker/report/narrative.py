@@ -204,11 +204,17 @@ def _move_sentences(
         if len(group) == 1 and len(shaky) == 1:
             text += (f" The move has low confidence ({float(shaky['confidence'].iloc[0]):.2f})"
                      " and may be noise.")
+        elif len(shaky) == len(group) > _NAMES_SHOWN:
+            # Naming thousands of actors makes a page nobody reads (and megabytes).
+            text += (f" All {len(group):,} of these moves have low confidence (at most "
+                     f"{float(shaky['confidence'].max()):.2f}) and may be noise.")
         elif len(shaky):
-            details = _join(
-                [f"{a} ({float(c):.2f})" for a, c in zip(shaky["actor"], shaky["confidence"])]
-            )
-            text += f" Low confidence, possibly noise: {details}."
+            named = shaky.iloc[:_NAMES_SHOWN]
+            details = [f"{a} ({float(c):.2f})" for a, c in zip(named["actor"], named["confidence"])]
+            rest = len(shaky) - len(details)
+            listed = (_join(details) if not rest
+                      else ", ".join(details) + f" and {rest:,} other{_s(rest)}")
+            text += f" Low confidence, possibly noise: {listed}."
         out.append((int(pidx), 1, text))
     return out
 
@@ -289,7 +295,7 @@ def _names(actors: Sequence[str]) -> str:
     if len(actors) <= _NAMES_SHOWN:
         return _join(actors)
     rest = len(actors) - _NAMES_SHOWN
-    return ", ".join(actors[:_NAMES_SHOWN]) + f" and {rest} other{_s(rest)}"
+    return ", ".join(actors[:_NAMES_SHOWN]) + f" and {rest:,} other{_s(rest)}"
 
 
 def _join(items: Sequence[str]) -> str:
