@@ -239,3 +239,34 @@ def test_anonymised_report_names_no_actor(watched, reports):
     assert len(codes) == len(ACTORS)  # every actor is still there, under a code
     assert options and all(re.fullmatch(r"A\d{3}", o.strip()) for o in options)
     assert page.locator("img").count() == 0 and page.locator("b").count() == 0
+
+
+def test_flow_band_tooltip_names_its_actors(watched, tmp_path):
+    # Vega's tooltip on an area shows the datum of the point nearest the pointer
+    # along x (measured here: the middle point of 17), so every point of a band
+    # must carry its names. Two bands that do not overlap: a00-a09 stay in T1,
+    # a10-a19 move from T1 to T2.
+    import pandas as pd
+
+    periods = ["2001", "2002"]
+    members = pd.DataFrame({"period": ["2001"] * 20 + ["2002"] * 20,
+                            "actor": [f"a{i:02d}" for i in range(20)] * 2,
+                            "track": [1] * 20 + [1] * 10 + [2] * 10})
+    members["position"] = members["track"]
+    path = tmp_path / "flow.html"
+    path.write_text(build_report({"memberships": members}, periods, {"study": "Flow"}),
+                    encoding="utf-8")
+    page = watched.page
+    _open_report(watched, path)
+    bands = page.locator("#chart-flow-view svg.marks g.mark-area path")
+    assert bands.count() == 2
+    shown = []
+    for i in range(2):
+        bands.nth(i).hover(force=True)  # the middle of an S-shaped band lies inside it
+        tip = page.locator("#vg-tooltip-element.visible")
+        tip.wait_for(timeout=5_000)
+        shown.append(tip.inner_text())
+        page.mouse.move(0, 0)
+    assert any(", ".join(f"a{i:02d}" for i in range(10)) in t for t in shown), shown
+    assert any(", ".join(f"a{i:02d}" for i in range(10, 20)) in t for t in shown), shown
+    assert watched.errors == []

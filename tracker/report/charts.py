@@ -314,6 +314,8 @@ def _flow_bands(
     rows["to_label"] = _track_labels(rows["track_to"], names)
     rows["from_period"] = [periods[i] for i in rows["pidx"]]
     rows["to_period"] = [periods[i + 1] for i in rows["pidx"]]
+    # Every point keeps the band's names: Vega shows the point nearest the pointer
+    # along x, not the first (tests/report/test_browser.py points at the middle).
     keep = ["link", "x", "y", "y2", "n", "flow", "track_label", "from_label", "to_label",
             "from_period", "to_period", "who"]
     return rows[keep]
