@@ -236,8 +236,14 @@ def flow_chart(
     )
     layers = [bars, counts_text, period_text]
     if len(bands):
+        # The names are looked up by band: on every one of a band's points (the
+        # tooltip shows the point nearest the pointer) they made most of the
+        # chart's size at tens of thousands of actors.
+        names = bands.drop_duplicates("link")[["link", "who"]]
         band_layer = (
-            alt.Chart(_data(bands))
+            alt.Chart(_data(bands.drop(columns="who")))
+            .transform_lookup(lookup="link", from_=alt.LookupData(data=_data(names), key="link",
+                                                                  fields=["who"]))
             .mark_area(interpolate="linear", strokeWidth=0)
             .encode(
                 x=alt.X("x:Q", scale=x_scale, axis=None),
@@ -314,8 +320,6 @@ def _flow_bands(
     rows["to_label"] = _track_labels(rows["track_to"], names)
     rows["from_period"] = [periods[i] for i in rows["pidx"]]
     rows["to_period"] = [periods[i + 1] for i in rows["pidx"]]
-    # Every point keeps the band's names: Vega shows the point nearest the pointer
-    # along x, not the first (tests/report/test_browser.py points at the middle).
     keep = ["link", "x", "y", "y2", "n", "flow", "track_label", "from_label", "to_label",
             "from_period", "to_period", "who"]
     return rows[keep]
