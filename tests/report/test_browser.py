@@ -14,6 +14,7 @@ import json
 import re
 import shutil
 
+import pandas as pd
 import pytest
 
 from tests.report.report_data import ACTORS, CLOSER, HOSTILE, make_tables
@@ -246,8 +247,6 @@ def test_flow_band_tooltip_names_its_actors(watched, tmp_path):
     # along x (measured here: the middle point of 17), so every point of a band
     # must carry its names. Two bands that do not overlap: a00-a09 stay in T1,
     # a10-a19 move from T1 to T2.
-    import pandas as pd
-
     periods = ["2001", "2002"]
     members = pd.DataFrame({"period": ["2001"] * 20 + ["2002"] * 20,
                             "actor": [f"a{i:02d}" for i in range(20)] * 2,

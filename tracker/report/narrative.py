@@ -211,10 +211,7 @@ def _move_sentences(
         elif len(shaky):
             named = shaky.iloc[:_NAMES_SHOWN]
             details = [f"{a} ({float(c):.2f})" for a, c in zip(named["actor"], named["confidence"])]
-            rest = len(shaky) - len(details)
-            listed = (_join(details) if not rest
-                      else ", ".join(details) + f" and {rest:,} other{_s(rest)}")
-            text += f" Low confidence, possibly noise: {listed}."
+            text += f" Low confidence, possibly noise: {_names(details, total=len(shaky))}."
         out.append((int(pidx), 1, text))
     return out
 
@@ -290,11 +287,13 @@ def _track_text(track: object, names: dict[int, str], *, long: bool = False) -> 
     return f"T{number}"
 
 
-def _names(actors: Sequence[str]) -> str:
+def _names(actors: Sequence[str], total: int | None = None) -> str:
+    """The first names, then a count of the rest; ``total`` when only the first were passed."""
     actors = list(actors)
-    if len(actors) <= _NAMES_SHOWN:
+    total = len(actors) if total is None else total
+    if total <= _NAMES_SHOWN:
         return _join(actors)
-    rest = len(actors) - _NAMES_SHOWN
+    rest = total - _NAMES_SHOWN
     return ", ".join(actors[:_NAMES_SHOWN]) + f" and {rest:,} other{_s(rest)}"
 
 
